@@ -1,0 +1,3 @@
+from studylog.cli.app import run
+
+run()

@@ -1,0 +1,1 @@
+"""The command line: parse, call one core operation, render. No logic lives here."""

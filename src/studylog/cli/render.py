@@ -1,0 +1,94 @@
+"""All output of the command line: one rich console for people, plain JSON for scripts.
+
+Rich respects ``NO_COLOR`` and prints no colour codes when stdout is not a terminal. JSON goes straight to
+stdout as one document, so that ``--json`` output can be piped into ``jq`` or parsed by a script.
+"""
+
+from __future__ import annotations
+
+import json
+import sys
+from collections.abc import Iterable, Sequence
+from typing import Any
+
+from rich.console import Console
+from rich.table import Table
+
+console = Console(highlight=False)
+err_console = Console(stderr=True, highlight=False, soft_wrap=True)
+
+
+def to_json_text(document: Any) -> str:
+    return json.dumps(document, ensure_ascii=False, indent=2, default=str)
+
+
+def emit_json(document: Any) -> None:
+    """Print one JSON document on stdout and nothing else."""
+    sys.stdout.write(to_json_text(document) + "\n")
+    sys.stdout.flush()
+
+
+def cell(value: Any) -> str:
+    if value is None:
+        return ""
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if isinstance(value, float):
+        return f"{value:.4g}"
+    if isinstance(value, (list, tuple)):
+        return ", ".join(cell(v) for v in value)
+    if isinstance(value, dict):
+        return ", ".join(f"{k}={cell(v)}" for k, v in value.items())
+    return str(value)
+
+
+def table(
+    columns: Sequence[str],
+    rows: Iterable[Sequence[Any]],
+    *,
+    title: str | None = None,
+) -> None:
+    """A rich table; cells are escaped so that text from the store never acts as markup."""
+    from rich.markup import escape
+
+    grid = Table(title=title, show_lines=False, title_justify="left")
+    for name in columns:
+        grid.add_column(name, overflow="fold")
+    for row in rows:
+        grid.add_row(*(escape(cell(v)) for v in row))
+    console.print(grid)
+
+
+def fields(pairs: Iterable[tuple[str, Any]], *, title: str | None = None) -> None:
+    """A two-column listing of one record's fields, skipping empty ones."""
+    from rich.markup import escape
+
+    grid = Table(title=title, show_header=False, title_justify="left", box=None, padding=(0, 2, 0, 0))
+    grid.add_column(style="bold")
+    grid.add_column(overflow="fold")
+    for name, value in pairs:
+        if value is None or value == [] or value == "" or value == {}:
+            continue
+        grid.add_row(escape(name), escape(cell(value)))
+    console.print(grid)
+
+
+def say(message: str) -> None:
+    """A line for people, escaped so that brackets in names print as they are."""
+    from rich.markup import escape
+
+    console.print(escape(message))
+
+
+def created(kind: str, record_id: int, as_json: bool, extra: dict[str, Any] | None = None) -> None:
+    """The contract for commands that create a record: print its id (``{"id": N, ...}`` with --json)."""
+    if as_json:
+        emit_json({"id": record_id, **(extra or {})})
+    else:
+        say(f"{kind} {record_id} recorded")
+
+
+def warn(message: str) -> None:
+    from rich.markup import escape
+
+    err_console.print(f"warning: {escape(message)}")

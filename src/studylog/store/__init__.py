@@ -1,0 +1,1 @@
+"""The store: models, sessions and migrations. Knows nothing of the layers above it."""
