@@ -101,13 +101,18 @@ def main(
     options.debug = debug
 
 
-def _register() -> None:
-    # Each command module adds its commands here. They import only light modules at the top;
-    # pandas, pyarrow and scipy are imported inside the commands that compute.
-    from studylog.cli import study
+# Each command module has a register(app) function. Modules import only light modules at the top;
+# pandas, pyarrow and scipy are imported inside the commands that compute. One module a line.
+COMMAND_MODULES = [
+    "studylog.cli.study",
+]
 
-    for module in (study,):
-        module.register(app)
+
+def _register() -> None:
+    import importlib
+
+    for name in COMMAND_MODULES:
+        importlib.import_module(name).register(app)
 
 
 _register()
