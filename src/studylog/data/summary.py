@@ -1,0 +1,493 @@
+"""Mergeable per-column summaries: the stored profile of each variable in a checked drop.
+
+How the check uses it (one summary per column, fed batch by batch in the same pass as the rules)::
+
+    from studylog.data.summary import ColumnSummary
+    summary = ColumnSummary(spec, spec.type)          # spec: VariableSpec, or None for an undeclared column
+    for batch in source.batches():
+        summary.update(batch.column(name))             # a string array; null or empty cells are missing
+    profile = summary.to_dict()                        # the stored profile (``profiles.data``)
+
+Summaries of parts of a file merge into the summary of the whole (``a.merge(b)``): counts add, means and
+variances combine by Chan, Golub & LeVeque's pairwise formulas, KLL sketches merge, level counts add.
+
+What is exact and what is estimated (stated in every profile):
+
+- counts, missing, missing codes, min, max, mean and sd (n - 1) are exact;
+- quantiles (q1, median, q3, deciles; linear interpolation, Hyndman & Fan type 7) are exact while the
+  column holds at most ``EXACT_LIMIT`` (100,000) numeric values; beyond that they come from a KLL sketch
+  (Apache DataSketches, k = 200) and ``quantile_error`` is its normalized rank error bound (about 1.33%
+  of the ranks, at 99% confidence); ``quantile_error`` is 0 when exact. The sketch is always stored
+  (base64 of ``kll_doubles_sketch.serialize()``), so drift can read the later drop's CDF at any edges;
+- ``histogram``: 20 equal-width bins from min to max; counts exact while exact, else from the sketch;
+- distinct counts are exact up to ``LEVEL_LIMIT`` (100,000) distinct values, then a k-minimum-values
+  estimate (Bar-Yossef et al. 2002; relative standard error about 1/sqrt(k - 2), k = 4096, ~1.6%);
+- level counts are exact up to ``LEVEL_LIMIT`` distinct values; past that the 1,000 most frequent levels
+  seen so far keep being counted exactly and every other value goes to ``levels_other``
+  (``levels_exact`` false);
+- outliers (Tukey fences on Tukey's hinges, modified z-score with |M| > 3.5) are computed while exact,
+  else null.
+
+Missing: a null cell, a cell that is empty after trimming spaces, or a cell equal (after trimming) to
+one of the variable's missing codes; each code is counted on its own. ``invalid`` counts present cells
+that do not parse as the variable's type (they are in ``count`` but in none of the numeric statistics).
+Values of direct-identifier variables and of free text are never stored: their ``levels`` are empty
+and ``levels_withheld`` is true. Profiles are unweighted.
+"""
+
+from __future__ import annotations
+
+import base64
+from typing import TYPE_CHECKING, Any
+
+from studylog.data.spec import NUMERIC_TYPES, VariableSpec
+
+if TYPE_CHECKING:
+    import numpy as np
+    import pyarrow as pa
+
+EXACT_LIMIT = 100_000
+LEVEL_LIMIT = 100_000
+LEVELS_STORED = 1_000
+KLL_K = 200
+KMV_K = 4096
+HISTOGRAM_BINS = 20
+NUMBER_PATTERN = r"^[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?$"
+DEFAULT_DATE_FORMAT = "%Y-%m-%d"
+DATETIME_FORMATS = ("%Y-%m-%dT%H:%M:%S", "%Y-%m-%d %H:%M:%S", "%Y-%m-%dT%H:%M", "%Y-%m-%d %H:%M")
+DATE_TYPES = ("date", "datetime")
+WITHHELD_SENSITIVITY = ("direct-identifier",)
+
+
+def kll_error() -> float:
+    """The KLL sketch's normalized rank error bound for k = 200 (single-sided quantile queries)."""
+    from datasketches import kll_doubles_sketch
+
+    return float(kll_doubles_sketch.get_normalized_rank_error(KLL_K, False))
+
+
+def decode_sketch(text: str):  # type: ignore[no-untyped-def]
+    """The KLL sketch stored in a profile's "sketch" field."""
+    from datasketches import kll_doubles_sketch
+
+    return kll_doubles_sketch.deserialize(base64.b64decode(text))
+
+
+class DistinctEstimate:
+    """k minimum values of a 64-bit hash: a mergeable distinct-count estimate (Bar-Yossef et al. 2002)."""
+
+    def __init__(self) -> None:
+        import numpy as np
+
+        self.smallest = np.empty(0, dtype=np.uint64)
+
+    def add_hashes(self, hashes: np.ndarray) -> None:
+        import numpy as np
+
+        merged = np.unique(np.concatenate([self.smallest, hashes.astype(np.uint64, copy=False)]))
+        self.smallest = merged[:KMV_K]
+
+    def add_values(self, values: pa.Array | np.ndarray) -> None:
+        self.add_hashes(hash_values(values))
+
+    def merge(self, other: DistinctEstimate) -> None:
+        self.add_hashes(other.smallest)
+
+    def estimate(self) -> int:
+        if len(self.smallest) < KMV_K:
+            return int(len(self.smallest))
+        kth = float(self.smallest[KMV_K - 1]) / 2.0**64
+        return int(round((KMV_K - 1) / kth))
+
+
+def hash_values(values: pa.Array | np.ndarray) -> np.ndarray:
+    """A 64-bit hash per value (pandas' vectorised hashing: SipHash for text, a mixer for numbers)."""
+    import numpy as np
+    import pandas as pd
+    import pyarrow as pa
+
+    if isinstance(values, (pa.Array, pa.ChunkedArray)):
+        values = values.to_numpy(zero_copy_only=False)
+    return pd.util.hash_array(np.asarray(values), categorize=False)
+
+
+class LevelCounts:
+    """Counts of each distinct value, mergeable; exact up to LEVEL_LIMIT distinct values."""
+
+    def __init__(self) -> None:
+        self.values: pa.Array | None = None
+        self.counts: np.ndarray | None = None
+        self.pending: list[tuple[pa.Array, np.ndarray]] = []
+        self.pending_size = 0
+        self.exact = True
+        self.other = 0  # counts of values not tracked once inexact
+        self.distinct = DistinctEstimate()
+
+    def update(self, values: pa.Array) -> None:
+        """Count the (non-missing) values of one batch."""
+        import pyarrow.compute as pc
+
+        if len(values) == 0:
+            return
+        if not self.exact:
+            self._count_tracked(values)
+            self.distinct.add_values(pc.unique(values))
+            return
+        counted = pc.value_counts(values)
+        self._add_pending(counted.field("values"), counted.field("counts").to_numpy())
+
+    def _add_pending(self, values: pa.Array, counts: np.ndarray) -> None:
+        self.pending.append((values, counts))
+        self.pending_size += len(values)
+        if self.pending_size > LEVEL_LIMIT:
+            self._compact()
+
+    def _count_tracked(self, values: pa.Array) -> None:
+        import numpy as np
+        import pyarrow.compute as pc
+
+        index = pc.index_in(values, value_set=self.values).to_numpy(zero_copy_only=False)
+        known = ~np.isnan(index) if index.dtype.kind == "f" else np.ones(len(index), dtype=bool)
+        found = index[known].astype(np.int64)
+        self.counts = self.counts + np.bincount(found, minlength=len(self.values))
+        self.other += int(len(values) - len(found))
+
+    def _compact(self) -> None:
+        import numpy as np
+        import pyarrow as pa
+
+        parts = self.pending
+        if self.values is not None:
+            parts = [(self.values, self.counts), *parts]
+        self.pending, self.pending_size = [], 0
+        if not parts:
+            return
+        table = pa.table({
+            "v": pa.concat_arrays([p[0].cast(parts[0][0].type) for p in parts]),
+            "c": pa.array(np.concatenate([p[1] for p in parts]), pa.int64()),
+        })
+        grouped = table.group_by("v").aggregate([("c", "sum")])
+        self.values, self.counts = grouped.column("v").combine_chunks(), grouped.column("c_sum").to_numpy()
+        if len(self.values) > LEVEL_LIMIT:
+            self._go_inexact()
+
+    def _go_inexact(self) -> None:
+        import numpy as np
+
+        self.exact = False
+        self.distinct.add_values(self.values)
+        order = np.lexsort((np.arange(len(self.counts)), -self.counts))
+        keep, rest = order[:LEVELS_STORED], order[LEVELS_STORED:]
+        self.other += int(self.counts[rest].sum())
+        self.values, self.counts = self.values.take(keep), self.counts[keep]
+
+    def merge(self, other: LevelCounts) -> None:
+        import numpy as np
+
+        other._compact()
+        if other.values is None:
+            return
+        if self.exact and other.exact:
+            self._add_pending(other.values, other.counts)
+            return
+        self._compact()
+        if self.exact:
+            self._go_inexact()
+        # other's tracked values add where we track them; the rest is "other"
+        if self.values is not None:
+            import pyarrow.compute as pc
+
+            index = pc.index_in(other.values, value_set=self.values).to_numpy(zero_copy_only=False)
+            known = ~np.isnan(index) if index.dtype.kind == "f" else np.ones(len(index), dtype=bool)
+            np.add.at(self.counts, index[known].astype(np.int64), other.counts[known])
+            self.other += int(other.counts[~known].sum())
+        self.other += other.other
+        self.distinct.merge(other.distinct)
+        if other.exact:
+            self.distinct.add_values(other.values)
+
+    def result(self) -> tuple[list[dict[str, Any]], int, int, bool]:
+        """(levels most frequent first, at most LEVELS_STORED; count of the rest; distinct; exact)."""
+        import numpy as np
+
+        self._compact()
+        if self.values is None:
+            return [], 0, 0, True
+        values = self.values.to_pylist()
+        order = sorted(range(len(values)), key=lambda i: (-int(self.counts[i]), str(values[i])))
+        shown = order[:LEVELS_STORED]
+        levels = [{"value": values[i], "count": int(self.counts[i])} for i in shown]
+        other = self.other + int(np.sum(self.counts[order[LEVELS_STORED:]])) if len(order) > LEVELS_STORED else self.other
+        distinct = len(values) if self.exact else max(self.distinct.estimate(), len(values))
+        return levels, int(other), int(distinct), self.exact
+
+
+class NumericSummary:
+    """Mergeable numeric statistics: exact moments, KLL sketch, and an exact buffer while small."""
+
+    def __init__(self) -> None:
+        from datasketches import kll_doubles_sketch
+
+        self.n = 0
+        self.mean = 0.0
+        self.m2 = 0.0
+        self.minimum = float("inf")
+        self.maximum = float("-inf")
+        self.sketch = kll_doubles_sketch(KLL_K)
+        self.buffer: list[np.ndarray] | None = []
+        self.buffered = 0
+        self.distinct = DistinctEstimate()
+        import numpy as np
+
+        self.uniques: np.ndarray | None = np.empty(0)  # the exact distinct values while few; else None
+
+    def update(self, x: np.ndarray) -> None:
+        import numpy as np
+
+        if len(x) == 0:
+            return
+        # the sketch's binding needs a writable, contiguous float64 array
+        x = np.array(x, dtype=np.float64, copy=True)
+        batch_mean = float(x.mean())
+        batch_m2 = float(((x - batch_mean) ** 2).sum())
+        self._combine(len(x), batch_mean, batch_m2)
+        self.minimum = min(self.minimum, float(x.min()))
+        self.maximum = max(self.maximum, float(x.max()))
+        self.sketch.update(x)
+        if self.buffer is not None:
+            self.buffer.append(x)
+            self.buffered += len(x)
+            if self.buffered > EXACT_LIMIT:
+                self.buffer = None
+        self._add_uniques(np.unique(x))
+
+    def _add_uniques(self, uniques: np.ndarray) -> None:
+        import numpy as np
+
+        if self.uniques is None:
+            self.distinct.add_hashes(hash_values(uniques))
+            return
+        self.uniques = np.union1d(self.uniques, uniques)
+        if len(self.uniques) > LEVEL_LIMIT:
+            self.distinct.add_hashes(hash_values(self.uniques))
+            self.uniques = None
+
+    def _combine(self, n: int, mean: float, m2: float) -> None:
+        # Chan, Golub & LeVeque (1979): pairwise update of count, mean and sum of squared deviations
+        if n == 0:
+            return
+        total = self.n + n
+        delta = mean - self.mean
+        self.mean += delta * n / total
+        self.m2 += m2 + delta * delta * self.n * n / total
+        self.n = total
+
+    def merge(self, other: NumericSummary) -> None:
+        self._combine(other.n, other.mean, other.m2)
+        self.minimum = min(self.minimum, other.minimum)
+        self.maximum = max(self.maximum, other.maximum)
+        self.sketch.merge(other.sketch)
+        if self.buffer is not None and other.buffer is not None and \
+                self.buffered + other.buffered <= EXACT_LIMIT:
+            self.buffer.extend(other.buffer)
+            self.buffered += other.buffered
+        else:
+            self.buffer = None
+        if other.uniques is not None:
+            self._add_uniques(other.uniques)
+        else:
+            if self.uniques is not None:
+                self.distinct.add_hashes(hash_values(self.uniques))
+                self.uniques = None
+            self.distinct.merge(other.distinct)
+
+    def to_dict(self) -> dict[str, Any]:
+        import numpy as np
+
+        if self.n == 0:
+            return {key: None for key in (
+                "min", "max", "mean", "sd", "q1", "median", "q3", "deciles", "sketch", "histogram",
+                "outliers")} | {"quantile_error": 0.0, "quantiles_exact": True}
+        probabilities = [0.25, 0.5, 0.75] + [i / 10 for i in range(1, 10)]
+        exact = self.buffer is not None
+        edges = np.linspace(self.minimum, self.maximum, HISTOGRAM_BINS + 1)
+        if self.minimum == self.maximum:
+            edges = np.array([self.minimum, self.maximum])
+        outliers = None
+        if exact:
+            values = np.sort(np.concatenate(self.buffer))
+            quantiles = np.quantile(values, probabilities).tolist()
+            counts = np.histogram(values, bins=edges)[0].tolist()
+            outliers = outlier_counts(values)
+        else:
+            quantiles = [float(q) for q in self.sketch.get_quantiles(probabilities)]
+            cdf = np.asarray(self.sketch.get_cdf(edges[1:-1].tolist()))[:-1] if len(edges) > 2 else []
+            cumulative = np.concatenate([[0.0], np.asarray(cdf) * self.n, [float(self.n)]])
+            counts = np.round(np.diff(cumulative)).astype(int).tolist()
+        sd = float(np.sqrt(self.m2 / (self.n - 1))) if self.n > 1 else None
+        return {
+            "min": _number(self.minimum), "max": _number(self.maximum), "mean": self.mean, "sd": sd,
+            "q1": quantiles[0], "median": quantiles[1], "q3": quantiles[2], "deciles": quantiles[3:],
+            "quantiles_exact": exact, "quantile_error": 0.0 if exact else kll_error(),
+            "sketch": base64.b64encode(self.sketch.serialize()).decode("ascii"),
+            "histogram": {"edges": [_number(e) for e in edges], "counts": counts},
+            "outliers": outliers,
+        }
+
+    def distinct_count(self) -> tuple[int, bool]:
+        if self.uniques is not None:
+            return int(len(self.uniques)), True
+        return self.distinct.estimate(), False
+
+
+def outlier_counts(sorted_values: np.ndarray) -> dict[str, int | None]:
+    """Tukey fences (1.5 and 3 x the spread between Tukey's hinges) and modified z-scores (|M| > 3.5).
+
+    Tukey's hinges are the medians of the lower and upper halves, each half including the median when n
+    is odd (Tukey 1977), as box plots draw them. Modified z: M = 0.6745 (x - median) / MAD (Iglewicz &
+    Hoaglin 1993); when MAD is 0 the count is null (no spread to measure against).
+    """
+    import numpy as np
+
+    x = sorted_values
+    n = len(x)
+    half = (n + 1) // 2
+    lower_hinge = float(np.median(x[:half]))
+    upper_hinge = float(np.median(x[n - half:]))
+    spread = upper_hinge - lower_hinge
+    inner = (x < lower_hinge - 1.5 * spread) | (x > upper_hinge + 1.5 * spread)
+    outer = (x < lower_hinge - 3 * spread) | (x > upper_hinge + 3 * spread)
+    median = float(np.median(x))
+    mad = float(np.median(np.abs(x - median)))
+    modified = None if mad == 0 else int((np.abs(0.6745 * (x - median) / mad) > 3.5).sum())
+    return {"tukey": int(inner.sum()), "tukey_far": int(outer.sum()), "modified_z": modified}
+
+
+def _number(value: float) -> float | int:
+    return int(value) if float(value).is_integer() and abs(value) < 2**53 else float(value)
+
+
+class ColumnSummary:
+    """The mergeable summary of one column of a drop; ``to_dict()`` is its stored profile."""
+
+    def __init__(self, spec: VariableSpec | None = None, type: str | None = None, *,
+                 name: str | None = None) -> None:
+        self.spec = spec
+        self.type = type or (spec.type if spec else "text")
+        self.name = name or (spec.name if spec else "")
+        self.codes: list[str] = [c.code.strip() for c in spec.missing_codes] if spec else []
+        self.rows = 0
+        self.empty = 0
+        self.code_counts = [0] * len(self.codes)
+        self.present = 0
+        self.invalid = 0
+        self.withheld = self.type == "text" or bool(spec and spec.sensitivity in WITHHELD_SENSITIVITY)
+        self.numeric = NumericSummary() if self.type in NUMERIC_TYPES else None
+        self.levels = LevelCounts() if self.type not in NUMERIC_TYPES + DATE_TYPES else None
+        self.date_min: str | None = None
+        self.date_max: str | None = None
+        self.dates = LevelCounts() if self.type in DATE_TYPES else None
+
+    def update(self, strings: pa.Array, spec: VariableSpec | None = None) -> None:
+        """Add one batch of a column (strings, null or empty where the cell is empty)."""
+        import numpy as np
+        import pyarrow as pa
+        import pyarrow.compute as pc
+
+        if isinstance(strings, pa.ChunkedArray):
+            strings = strings.combine_chunks()
+        if not pa.types.is_string(strings.type) and not pa.types.is_large_string(strings.type):
+            strings = pc.cast(strings, pa.string())
+        self.rows += len(strings)
+        trimmed = pc.utf8_trim_whitespace(strings)
+        empty = pc.fill_null(pc.equal(trimmed, ""), True)
+        missing = empty
+        self.empty += int(pc.sum(empty).as_py() or 0)
+        if self.codes:
+            index = pc.index_in(trimmed, value_set=pa.array(self.codes, trimmed.type))
+            found = index.drop_null().to_numpy()
+            self.code_counts = (np.asarray(self.code_counts) +
+                                np.bincount(found, minlength=len(self.codes))).tolist()
+            missing = pc.or_(missing, pc.is_valid(index))
+        present_raw = pc.filter(strings, pc.invert(missing))
+        present = pc.filter(trimmed, pc.invert(missing))
+        self.present += len(present)
+        if self.numeric is not None:
+            valid = pc.match_substring_regex(present, NUMBER_PATTERN)
+            numbers = pc.cast(pc.filter(present, valid), pa.float64()).to_numpy(zero_copy_only=False)
+            self.invalid += len(present) - len(numbers)
+            self.numeric.update(numbers)
+        elif self.dates is not None:
+            self._update_dates(present)
+        else:
+            self.levels.update(present_raw)
+
+    def _update_dates(self, present: pa.Array) -> None:
+        import pyarrow as pa
+        import pyarrow.compute as pc
+
+        if len(present) == 0:
+            return
+        formats = (self.spec.date_format,) if self.spec and self.spec.date_format else (
+            (DEFAULT_DATE_FORMAT,) if self.type == "date" else DATETIME_FORMATS)
+        parsed = None
+        for fmt in formats:
+            attempt = pc.strptime(present, format=fmt, unit="s", error_is_null=True)
+            # strptime rolls impossible days over (30 February -> 1 March): keep only exact round trips
+            exact = pc.equal(pc.strftime(attempt, format=fmt), present)
+            attempt = pc.if_else(pc.fill_null(exact, False), attempt, None)
+            parsed = attempt if parsed is None else pc.coalesce(parsed, attempt)
+        self.invalid += int(parsed.null_count)
+        valid = parsed.drop_null()
+        if len(valid) == 0:
+            return
+        unit = pa.date32() if self.type == "date" else pa.timestamp("s")
+        values = pc.cast(valid, unit) if self.type == "date" else valid
+        self.dates.update(values)
+        low, high = pc.min(values).as_py().isoformat(), pc.max(values).as_py().isoformat()
+        self.date_min = low if self.date_min is None else min(self.date_min, low)
+        self.date_max = high if self.date_max is None else max(self.date_max, high)
+
+    def merge(self, other: ColumnSummary) -> ColumnSummary:
+        """Fold another part's summary of the same column into this one (returns self)."""
+        self.rows += other.rows
+        self.empty += other.empty
+        self.code_counts = [a + b for a, b in zip(self.code_counts, other.code_counts)]
+        self.present += other.present
+        self.invalid += other.invalid
+        if self.numeric is not None and other.numeric is not None:
+            self.numeric.merge(other.numeric)
+        if self.levels is not None and other.levels is not None:
+            self.levels.merge(other.levels)
+        if self.dates is not None and other.dates is not None:
+            self.dates.merge(other.dates)
+            for value in (other.date_min, other.date_max):
+                if value is not None:
+                    self.date_min = value if self.date_min is None else min(self.date_min, value)
+                    self.date_max = value if self.date_max is None else max(self.date_max, value)
+        return self
+
+    def to_dict(self) -> dict[str, Any]:
+        """The stored profile of the column (the format in the brief's "Stored profile")."""
+        missing_codes = [{"code": c, "count": int(n)} for c, n in zip(self.codes, self.code_counts)]
+        profile: dict[str, Any] = {
+            "name": self.name, "type": self.type, "rows": self.rows, "count": self.present,
+            "missing": self.empty + sum(self.code_counts), "empty": self.empty,
+            "missing_codes": missing_codes, "invalid": self.invalid,
+        }
+        if self.numeric is not None:
+            distinct, exact = self.numeric.distinct_count()
+            profile.update(distinct=distinct, distinct_exact=exact)
+            profile.update(self.numeric.to_dict())
+        elif self.dates is not None:
+            _, _, distinct, exact = self.dates.result()
+            profile.update(distinct=distinct, distinct_exact=exact, min=self.date_min, max=self.date_max)
+        else:
+            levels, other, distinct, exact = self.levels.result()
+            profile.update(distinct=distinct, distinct_exact=exact, levels_exact=exact)
+            if self.withheld:
+                profile.update(levels=[], levels_other=sum(level["count"] for level in levels) + other,
+                               levels_withheld=True)
+            else:
+                profile.update(levels=levels, levels_other=other, levels_withheld=False)
+        return profile

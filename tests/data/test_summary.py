@@ -1,0 +1,130 @@
+"""Stored per-column summaries: exact parts against numpy, sketched quantiles within the stated bound,
+and mergeability (summaries of parts merge into the summary of the whole)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pyarrow as pa
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from studylog.data.spec import Code, VariableSpec
+from studylog.data.summary import EXACT_LIMIT, ColumnSummary, decode_sketch, kll_error
+
+NUMBER = VariableSpec(name="x", type="number", missing_codes=(Code("-99", "refused"), Code("-98")))
+
+
+def summarise(values: list[str | None], spec: VariableSpec = NUMBER, batch: int = 7) -> dict:
+    summary = ColumnSummary(spec, spec.type)
+    array = pa.array(values, pa.string())
+    for start in range(0, max(len(array), 1), batch):
+        summary.update(array.slice(start, batch))
+    return summary.to_dict()
+
+
+def test_missing_codes_are_counted_per_code_and_never_as_values() -> None:
+    profile = summarise(["1", "-99", " -99 ", "", None, "-98", "3", "abc", "2"])
+    assert profile["rows"] == 9
+    assert profile["missing"] == 5  # two empty, two -99, one -98
+    assert profile["missing_codes"] == [{"code": "-99", "count": 2}, {"code": "-98", "count": 1}]
+    assert profile["count"] == 4 and profile["invalid"] == 1
+    # numpy is the reference for the statistics of the parsed values 1, 3, 2
+    values = np.array([1.0, 3.0, 2.0])
+    assert profile["min"] == 1 and profile["max"] == 3
+    assert profile["mean"] == pytest.approx(values.mean())
+    assert profile["sd"] == pytest.approx(values.std(ddof=1))
+    assert profile["median"] == pytest.approx(np.median(values))
+    assert profile["quantile_error"] == 0.0 and profile["quantiles_exact"] is True
+
+
+def test_exact_quantiles_match_numpy_type_7() -> None:
+    # Hyndman & Fan (1996) type 7 is numpy's default "linear" method
+    rng = np.random.default_rng(7)
+    x = rng.gamma(2.0, 3.0, size=5_000)
+    profile = summarise([repr(float(v)) for v in x], batch=999)
+    expected = np.quantile(x, [0.25, 0.5, 0.75])
+    assert [profile["q1"], profile["median"], profile["q3"]] == pytest.approx(expected.tolist())
+    assert profile["deciles"] == pytest.approx(np.quantile(x, np.arange(1, 10) / 10).tolist())
+    assert sum(profile["histogram"]["counts"]) == 5_000
+    assert profile["histogram"]["counts"] == np.histogram(x, bins=np.array(profile["histogram"]["edges"]))[0].tolist()
+
+
+def test_sketched_quantiles_within_stated_rank_error() -> None:
+    # Beyond EXACT_LIMIT values the quantiles come from the KLL sketch; its normalized rank error
+    # (Apache DataSketches, k = 200: about 1.33%) bounds |rank(estimate) - p| with 99% confidence.
+    rng = np.random.default_rng(11)
+    x = rng.lognormal(0.0, 1.0, size=3 * EXACT_LIMIT)
+    profile = summarise([repr(float(v)) for v in x], batch=65_536)
+    assert profile["quantiles_exact"] is False
+    bound = kll_error()
+    assert profile["quantile_error"] == pytest.approx(bound) and 0.01 < bound < 0.02
+    ordered = np.sort(x)
+    for p, estimate in zip(np.arange(1, 10) / 10, profile["deciles"]):
+        rank = np.searchsorted(ordered, estimate, side="right") / len(x)
+        assert abs(rank - p) <= bound
+    # mean and sd stay exact (numpy reference)
+    assert profile["mean"] == pytest.approx(x.mean(), rel=1e-12)
+    assert profile["sd"] == pytest.approx(x.std(ddof=1), rel=1e-9)
+    sketch = decode_sketch(profile["sketch"])
+    assert sketch.n == len(x)
+    assert sum(profile["histogram"]["counts"]) == pytest.approx(len(x), abs=25)
+
+
+def test_levels_most_frequent_first_and_withheld_for_identifiers() -> None:
+    spec = VariableSpec(name="plan", type="categorical", missing_codes=(Code("unknown"),))
+    profile = summarise(["b", "a", "b", "c", "unknown", "", "b", "a"], spec, batch=3)
+    assert profile["levels"] == [{"value": "b", "count": 3}, {"value": "a", "count": 2},
+                                 {"value": "c", "count": 1}]
+    assert profile["distinct"] == 3 and profile["distinct_exact"] is True
+    assert profile["missing"] == 2
+    secret = VariableSpec(name="email", type="identifier", sensitivity="direct-identifier")
+    withheld = summarise(["x@y", "z@w", "x@y"], secret)
+    assert withheld["levels"] == [] and withheld["levels_withheld"] is True
+    assert withheld["levels_other"] == 3 and withheld["distinct"] == 2
+
+
+def test_many_levels_keep_exact_counts_of_the_most_frequent() -> None:
+    from studylog.data import summary as module
+
+    values = [f"id{i}" for i in range(module.LEVEL_LIMIT + 5_000)] + ["id1"] * 10
+    profile = summarise(values, VariableSpec(name="id", type="identifier"), batch=20_000)
+    assert profile["levels_exact"] is False
+    assert profile["levels"][0] == {"value": "id1", "count": 11}
+    assert len(profile["levels"]) == module.LEVELS_STORED
+    assert sum(lv["count"] for lv in profile["levels"]) + profile["levels_other"] == len(values)
+    # k-minimum-values estimate: relative standard error about 1/sqrt(k - 2) = 1.6%; allow 5 of them
+    assert profile["distinct"] == pytest.approx(module.LEVEL_LIMIT + 5_000, rel=0.08)
+
+
+def test_strict_dates() -> None:
+    spec = VariableSpec(name="d", type="date")
+    profile = summarise(["2024-02-29", "2023-02-29", "2024-01-05", "", "05/01/2024"], spec)
+    assert profile["invalid"] == 2  # 2023 has no 29 February; the last is not ISO 8601
+    assert profile["min"] == "2024-01-05" and profile["max"] == "2024-02-29"
+
+
+cells = st.lists(
+    st.one_of(st.none(), st.sampled_from(["", "-99", "-98", "x"]),
+              st.integers(-50, 50).map(str), st.floats(-1e3, 1e3, allow_nan=False).map(repr)),
+    min_size=0, max_size=60,
+)
+
+
+@settings(max_examples=60, deadline=None)
+@given(cells, st.integers(0, 60), st.sampled_from(["number", "categorical"]))
+def test_merged_parts_equal_the_whole(values: list[str | None], cut: int, kind: str) -> None:
+    spec = VariableSpec(name="x", type=kind, missing_codes=NUMBER.missing_codes)
+    whole = ColumnSummary(spec)
+    whole.update(pa.array(values, pa.string()))
+    left, right = ColumnSummary(spec), ColumnSummary(spec)
+    left.update(pa.array(values[:cut], pa.string()))
+    right.update(pa.array(values[cut:], pa.string()))
+    merged = left.merge(right).to_dict()
+    expected = whole.to_dict()
+    for key in ("mean", "sd"):
+        if expected.get(key) is not None:
+            assert merged[key] == pytest.approx(expected[key], rel=1e-9, abs=1e-9)
+    strip = {"mean", "sd", "sketch"}
+    assert {k: v for k, v in merged.items() if k not in strip} == \
+        {k: v for k, v in expected.items() if k not in strip}
