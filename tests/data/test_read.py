@@ -1,0 +1,291 @@
+"""Reading data files as all-text record batches; malformed input as one InputFileError."""
+
+from __future__ import annotations
+
+import datetime as dt
+from pathlib import Path
+
+import pyarrow as pa
+import pyarrow.parquet as pq
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from studylog.data import read
+from studylog.data.read import file_facts, open_source, read_table
+from studylog.errors import InputFileError, StudylogError, UsageError
+
+
+def write(tmp_path: Path, name: str, data: bytes) -> Path:
+    path = tmp_path / name
+    path.write_bytes(data)
+    return path
+
+
+@pytest.mark.parametrize(
+    ("data", "delimiter"),
+    [
+        (b"a,b,c\n1,2,3\n", ","),
+        (b"a;b;c\n1,5;2,25;3\n4;5;6\n", ";"),  # decimal commas do not fool the detector
+        (b"a\tb\n1\t2\n", "\t"),
+        (b"a|b\n1|2\n", "|"),
+        (b'name,comment\n"Smith; J.",ok; fine\n', ","),  # quoted and unquoted semicolons in values
+    ],
+)
+def test_delimiter_is_detected(tmp_path: Path, data: bytes, delimiter: str) -> None:
+    source = open_source(write(tmp_path, "x.csv", data))
+    assert source.delimiter == delimiter
+    header = data.split(b"\n")[0].decode().split(delimiter)
+    assert len(source.columns) == len(header)
+
+
+def test_cells_are_text_and_empty_cells_are_null(tmp_path: Path) -> None:
+    path = write(tmp_path, "x.csv", b"id,amount,note\n001,1.50,\n002,,\"\"\n003,abc,x\n")
+    table = read_table(path)
+    assert table.schema.types == [pa.string()] * 3
+    # leading zeros and trailing decimals survive: CSV is read as text
+    assert table.column("id").to_pylist() == ["001", "002", "003"]
+    assert table.column("amount").to_pylist() == ["1.50", None, "abc"]
+    assert table.column("note").to_pylist() == [None, None, "x"]
+
+
+def test_bom_and_crlf_and_missing_final_newline(tmp_path: Path) -> None:
+    path = write(tmp_path, "x.csv", b"\xef\xbb\xbfa,b\r\n1,2\r\n3,4")
+    table = read_table(path)
+    assert table.column_names == ["a", "b"]
+    assert table.to_pydict() == {"a": ["1", "3"], "b": ["2", "4"]}
+
+
+def test_other_encoding_by_name(tmp_path: Path) -> None:
+    path = write(tmp_path, "x.csv", "name\ncafé\nMüller\n".encode("latin-1"))
+    with pytest.raises(InputFileError) as caught:
+        open_source(path)
+    assert caught.value.line == 2
+    assert "--encoding" in caught.value.message
+    assert read_table(path, encoding="latin-1").column("name").to_pylist() == ["café", "Müller"]
+
+
+def test_unknown_encoding_is_a_usage_error(tmp_path: Path) -> None:
+    with pytest.raises(UsageError):
+        open_source(write(tmp_path, "x.csv", b"a\n1\n"), encoding="klingon-8")
+
+
+def test_batches_keep_file_order_and_respect_batch_rows(tmp_path: Path) -> None:
+    rows = "\n".join(f"{i},{i * 2}" for i in range(1000))
+    path = write(tmp_path, "x.csv", ("i,j\n" + rows + "\n").encode())
+    source = open_source(path, batch_rows=64)
+    batches = list(source.batches())
+    assert max(batch.num_rows for batch in batches) <= 64
+    assert [v for b in batches for v in b.column(0).to_pylist()] == [str(i) for i in range(1000)]
+    # a source can be read more than once
+    assert sum(b.num_rows for b in source.batches()) == 1000
+
+
+def test_a_row_longer_than_a_block_is_read(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setattr(read, "FIRST_BLOCK", 1024)
+    big = "x" * 50_000
+    path = write(tmp_path, "x.csv", f"a,b\n1,short\n2,{big}\n3,end\n".encode())
+    table = read_table(path)
+    assert table.column("b").to_pylist() == ["short", big, "end"]
+    assert table.column("a").to_pylist() == ["1", "2", "3"]
+
+
+def test_progress_reaches_the_file_size(tmp_path: Path) -> None:
+    path = write(tmp_path, "x.csv", b"a\n" + b"1\n" * 10_000)
+    seen: list[tuple[int, int]] = []
+    list(open_source(path, progress=lambda done, total: seen.append((done, total))).batches())
+    assert seen and seen[-1] == (path.stat().st_size, path.stat().st_size)
+
+
+def test_quoted_values_may_span_lines(tmp_path: Path) -> None:
+    path = write(tmp_path, "x.csv", b'a,b\n1,"two\nlines"\n2,"say ""hi"""\n')
+    assert read_table(path).column("b").to_pylist() == ["two\nlines", 'say "hi"']
+
+
+@pytest.mark.parametrize(
+    ("name", "data", "words", "line"),
+    [
+        ("empty.csv", b"", "empty", None),
+        ("bom.csv", b"\xef\xbb\xbf", "byte-order mark", None),
+        ("blank.csv", b" \n\n\t\n", "no text", None),
+        ("header.csv", b"a,b,c\n", "no data rows", None),
+        ("dup.csv", b"a,b,a\n1,2,3\n", "duplicate column name 'a'", 1),
+        ("blankname.csv", b"a,,c\n1,2,3\n", "column 2 has a blank name", 1),
+        ("spacename.csv", b"a,  ,c\n1,2,3\n", "column 2 has a blank name", 1),
+        # pyarrow numbers rows without the empty line and counts the quoted two-line value once;
+        # the message gives the physical line of the file
+        ("ragged.csv", b'a,b\n1,"x\ny"\n\n3,4,5\n', "3 values but the header has 2", 5),
+        ("short.csv", b"a,b\n1,2\n3\n", "1 value but the header has 2", 3),
+        ("quote.csv", b'a,b\n1,2\n3,"4\n5,6\n', "never closed", 3),
+        ("latin.csv", b"a,b\n1,2\n3,caf\xe9\n", "0xe9 is not valid utf-8", 3),
+        ("nul.csv", b"a,b\n1,2\n3,x\x00y\n", "NUL byte", 3),
+        ("zip.csv", b"PK\x03\x04\x14\x00\x00\x00", "zip archive", None),
+        ("parquet.csv", b"PAR1\x00\x00", "Parquet", None),
+        ("data.json", b"{}", "unknown kind of file '.json'", None),
+        ("noext", b"a\n1\n", "unknown kind of file", None),
+        ("old.xls", b"\xd0\xcf\x11\xe0", ".xls", None),
+    ],
+)
+def test_malformed_csv_names_the_problem_and_line(
+    tmp_path: Path, name: str, data: bytes, words: str, line: int | None
+) -> None:
+    path = write(tmp_path, name, data)
+    with pytest.raises(InputFileError) as caught:
+        list(open_source(path).batches())
+    assert words in caught.value.message
+    assert caught.value.line == line
+    assert str(path) in caught.value.message
+
+
+def test_errors_late_in_the_file_surface_while_streaming(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setattr(read, "FIRST_BLOCK", 1 << 16)
+    good = b"".join(b"%d,%d\n" % (i, i) for i in range(200_000))
+    path = write(tmp_path, "x.csv", b"a,b\n" + good + b"1,2,3\n")
+    source = open_source(path)  # the first block is fine
+    with pytest.raises(InputFileError) as caught:
+        list(source.batches())
+    assert caught.value.line == 200_002
+
+
+def test_missing_file(tmp_path: Path) -> None:
+    with pytest.raises(InputFileError, match="no such file"):
+        open_source(tmp_path / "nope.csv")
+
+
+def test_parquet_values_become_text(tmp_path: Path) -> None:
+    table = pa.table(
+        {
+            "i": pa.array([1, None, -3], pa.int64()),
+            "f": [1.5, float("nan"), 0.1],
+            "s": ["x", "", None],
+            "b": [True, False, None],
+            "d": [dt.date(2024, 1, 2), None, dt.date(1999, 12, 31)],
+            "t": pa.array([dt.datetime(2024, 1, 2, 3, 4, 5), None, dt.datetime(2024, 1, 2)], pa.timestamp("ns")),
+            "tz": pa.array([dt.datetime(2024, 1, 2, 3, 4, 5, 250000), None, None], pa.timestamp("us", tz="UTC")),
+            "c": pa.array(["u", "v", "u"]).dictionary_encode(),
+        }
+    )
+    path = tmp_path / "x.parquet"
+    pq.write_table(table, path)
+    source = open_source(path)
+    assert source.rows == 3 and source.format == "parquet"
+    got = read_table(path)
+    assert set(got.schema.types) == {pa.string()}
+    assert got.to_pydict() == {
+        "i": ["1", None, "-3"],
+        "f": ["1.5", None, "0.1"],  # NaN is a missing value
+        "s": ["x", None, None],
+        "b": ["true", "false", None],
+        "d": ["2024-01-02", None, "1999-12-31"],
+        "t": ["2024-01-02T03:04:05", None, "2024-01-02T00:00:00"],
+        "tz": ["2024-01-02T03:04:05.250000Z", None, None],
+        "c": ["u", "v", "u"],
+    }
+
+
+def test_truncated_parquet(tmp_path: Path) -> None:
+    path = tmp_path / "x.parquet"
+    pq.write_table(pa.table({"a": list(range(1000))}), path)
+    path.write_bytes(path.read_bytes()[:300])
+    with pytest.raises(InputFileError, match="not a readable Parquet file"):
+        open_source(path)
+
+
+def test_nested_parquet_is_refused(tmp_path: Path) -> None:
+    path = tmp_path / "x.parquet"
+    pq.write_table(pa.table({"a": [[1, 2], [3]]}), path)
+    with pytest.raises(InputFileError, match="nested"):
+        open_source(path)
+
+
+def test_excel_first_sheet_or_named(tmp_path: Path) -> None:
+    import openpyxl
+
+    book = openpyxl.Workbook()
+    first = book.active
+    first.title = "visits"
+    first.append(["id", "weight", "seen", "ok"])
+    first.append([1, 71.5, dt.datetime(2024, 3, 1), True])
+    first.append([None, 3.0, dt.datetime(2024, 3, 2), False])
+    first.append([])  # an empty row is skipped, like an empty line in CSV
+    first.append([3, None, None, None])
+    other = book.create_sheet("codes")
+    other.append(["code"])
+    other.append(["A"])
+    path = tmp_path / "x.xlsx"
+    book.save(path)
+    got = read_table(path)
+    assert got.to_pydict() == {
+        "id": ["1", None, "3"],
+        "weight": ["71.5", "3", None],
+        "seen": ["2024-03-01", "2024-03-02", None],  # midnight datetimes of a column are dates
+        "ok": ["true", "false", None],
+    }
+    assert read_table(path, sheet="codes").to_pydict() == {"code": ["A"]}
+    with pytest.raises(InputFileError, match="no sheet 'nope'"):
+        open_source(path, sheet="nope")
+
+
+def test_excel_header_only_and_not_a_workbook(tmp_path: Path) -> None:
+    import openpyxl
+    import zipfile
+
+    book = openpyxl.Workbook()
+    book.active.append(["a", "b"])
+    path = tmp_path / "h.xlsx"
+    book.save(path)
+    with pytest.raises(InputFileError, match="no data rows"):
+        open_source(path)
+    fake = tmp_path / "z.xlsx"
+    with zipfile.ZipFile(fake, "w") as archive:
+        archive.writestr("readme.txt", "not a workbook")
+    with pytest.raises(InputFileError, match="not a readable Excel workbook"):
+        open_source(fake)
+
+
+def test_file_facts_against_hashlib(tmp_path: Path) -> None:
+    import hashlib
+
+    data = b"a,b\n" + b"1,2\n" * 300_000
+    path = write(tmp_path, "x.csv", data)
+    # reference: hashlib over the whole content at once
+    assert file_facts(path) == (hashlib.sha256(data).hexdigest(), len(data))
+
+
+@settings(max_examples=300, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(data=st.binary(max_size=400), suffix=st.sampled_from([".csv", ".tsv", ".parquet", ".xlsx"]))
+def test_arbitrary_bytes_raise_only_our_error(tmp_path: Path, data: bytes, suffix: str) -> None:
+    path = tmp_path / f"any{suffix}"
+    path.write_bytes(data)
+    try:
+        source = open_source(path)
+        for batch in source.batches():
+            assert all(pa.types.is_string(t) or pa.types.is_large_string(t) for t in batch.schema.types)
+    except StudylogError:
+        pass
+
+
+@settings(max_examples=200, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(
+    data=st.lists(
+        st.lists(st.text(st.characters(blacklist_categories=("Cs",), blacklist_characters="\x00"), max_size=8),
+                 min_size=3, max_size=3),
+        min_size=1, max_size=20,
+    )
+)
+def test_csv_round_trip_through_the_standard_writer(tmp_path: Path, data: list[list[str]]) -> None:
+    """Python's csv writer (the reference) writes any cells; we read back the same texts, '' as null."""
+    import csv
+    import io
+
+    buffer = io.StringIO()
+    writer = csv.writer(buffer, quoting=csv.QUOTE_ALL, lineterminator="\n")
+    writer.writerow(["a", "b", "c"])
+    writer.writerows(data)
+    path = tmp_path / "x.csv"
+    path.write_text(buffer.getvalue(), encoding="utf-8")
+    table = read_table(path)
+    # every value quoted, so nothing is an empty line; \r inside quotes is kept by both
+    expected = [[cell if cell != "" else None for cell in row] for row in data]
+    got = [list(row) for row in zip(*(table.column(i).to_pylist() for i in range(3)))]
+    assert got == expected
