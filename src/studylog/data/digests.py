@@ -1,0 +1,459 @@
+"""Record digests: a fixed-size fingerprint of each record's key and of the whole record.
+
+They let a drop be compared record by record with an earlier drop without re-reading the earlier file.
+How the check uses it (keyed tables only; batches in file order, all columns strings)::
+
+    from studylog.data.digests import RecordDigester, compare_records
+    digester = RecordDigester(key_columns=["visit_id"], all_columns=source.columns)
+    for batch in source.batches():
+        digester.update(batch)
+    later = digester.finish()                  # Records: in memory, in file order
+    chunks = later.to_chunks()                 # [(kind, seq, bytes)] for ``digest_chunks``
+    earlier = Records.from_chunks(rows)        # rows: (kind, seq, data) read back from the store
+    result = compare_records(earlier, later)   # new, vanished, changed, examples, changed columns
+
+Method. A record's cells are joined with the unit separator U+001F (an empty cell becomes U+001E) and
+the joined text is hashed twice with SipHash-2-4 under two different 128-bit keys (pandas'
+vectorised ``hash_array``), giving a 128-bit digest. The key digest covers the key columns in the
+table's key order; the row digest covers all columns in name order (so a reordered file compares
+equal). A single-column key's digest is the digest of that cell alone, so a foreign key's value can
+be looked up among a parent table's key digests.
+
+Collision probability. For n distinct keys the chance that any two share a 128-bit digest is about
+n^2 / 2^129 (1.5e-25 for 10 million keys); the chance that a changed record keeps its row digest is
+about 2^-128 per record. Cells that themselves contain U+001F or U+001E could make two different
+records join to the same text; such control characters do not occur in ordinary data files.
+
+Layout in the store (``digest_chunks``, one drop): ``meta`` (seq 0, JSON: format, key, columns, rows,
+chunk size), then per chunk of CHUNK_ROWS records in file order, seq 1, 2, ...: ``records`` (n x 4
+little-endian uint64: key digest, row digest; 32 bytes a record; record i of the drop is data row i + 1),
+``keys`` (the key cells as text, joined by U+001F, an Arrow IPC stream compressed with zstd; used only
+for example keys of vanished records), and, while the drop has at most COLUMN_DIGEST_CELLS cells,
+``columns`` (n x columns uint16: a 16-bit digest of each cell, so that a changed record can say which
+columns changed; a changed cell keeps its 16-bit digest with probability 1/65,536). For large drops
+the per-column digests are not kept: they would cost 2 bytes a cell and a hash of every cell, and
+"which columns changed" is then reported as unknown. Rows whose key has an empty cell get the zero
+digest and take no part in the comparison (the key check reports them).
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
+
+if TYPE_CHECKING:
+    import numpy as np
+    import pyarrow as pa
+
+FORMAT = 1
+CHUNK_ROWS = 1 << 20
+COLUMN_DIGEST_CELLS = 5_000_000
+EXAMPLES = 20
+SEPARATOR = "\x1f"
+EMPTY_MARK = "\x1e"
+# two 128-bit SipHash keys (16 characters each); fixed forever, or stored digests stop matching
+HASH_KEYS = ("studylog:digest1", "studylog:digest2")
+COLUMN_HASH_KEY = "studylog:columns"
+
+
+def _as_strings(array: pa.Array | pa.ChunkedArray) -> pa.Array:
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    if isinstance(array, pa.ChunkedArray):
+        array = array.combine_chunks()
+    if not pa.types.is_string(array.type) and not pa.types.is_large_string(array.type):
+        array = pc.cast(array, pa.string())
+    return array
+
+
+def join_cells(columns: list[pa.Array]) -> pa.Array:
+    """The cells of each row joined by U+001F, empty or null cells written as U+001E."""
+    import pyarrow.compute as pc
+
+    import pyarrow as pa
+
+    columns = [pc.if_else(pc.fill_null(pc.equal(c, ""), True), EMPTY_MARK, c).cast(pa.large_string())
+               for c in map(_as_strings, columns)]
+    if len(columns) == 1:
+        return columns[0]
+    return pc.binary_join_element_wise(*columns, pa.scalar(SEPARATOR, pa.large_string()))
+
+
+def digest_strings(strings: pa.Array) -> np.ndarray:
+    """A 128-bit digest per string, as an (n, 2) uint64 array (SipHash-2-4 under two keys)."""
+    import numpy as np
+    import pandas as pd
+
+    objects = strings.to_numpy(zero_copy_only=False)
+    out = np.empty((len(objects), 2), dtype=np.uint64)
+    for i, key in enumerate(HASH_KEYS):
+        out[:, i] = pd.util.hash_array(objects, hash_key=key, categorize=False)
+    return out
+
+
+def digest_values(columns: list[pa.Array]) -> np.ndarray:
+    """Key digests of rows given their key columns (in key order); zero where a key cell is empty."""
+    import numpy as np
+    import pyarrow.compute as pc
+
+    columns = [_as_strings(c) for c in columns]
+    out = digest_strings(join_cells(columns))
+    empty = np.zeros(len(out), dtype=bool)
+    for column in columns:
+        empty |= pc.fill_null(pc.equal(pc.utf8_trim_whitespace(column), ""), True).to_numpy(
+            zero_copy_only=False)
+    out[empty] = 0
+    return out
+
+
+def cell_digests(column: pa.Array) -> np.ndarray:
+    """A 16-bit digest of each cell (the unique values are hashed once, then gathered)."""
+    import numpy as np
+    import pandas as pd
+    import pyarrow.compute as pc
+
+    encoded = pc.dictionary_encode(join_cells([column]))
+    hashes = pd.util.hash_array(encoded.dictionary.to_numpy(zero_copy_only=False),
+                                hash_key=COLUMN_HASH_KEY, categorize=False)
+    return (hashes >> np.uint64(48)).astype(np.uint16)[encoded.indices.to_numpy(zero_copy_only=False)]
+
+
+@dataclass
+class Records:
+    """The digests of one drop, in file order: (n, 4) uint64 (key digest, row digest), and extras."""
+
+    key: list[str]
+    columns: list[str]
+    digests: np.ndarray
+    # compressed key texts per chunk (Arrow IPC, zstd), aligned with CHUNK_ROWS chunks
+    key_texts: list[bytes] = field(default_factory=list)
+    # (n, len(columns)) uint16 per-cell digests, or None when the drop was too large to keep them
+    cells: np.ndarray | None = None
+
+    @property
+    def rows(self) -> int:
+        return int(len(self.digests))
+
+    def key_text(self, indices: np.ndarray) -> list[list[str | None]]:
+        """The key cells of the records at these (0-based) positions, as lists of texts."""
+        import numpy as np
+
+        result: dict[int, list[str | None]] = {}
+        wanted = np.asarray(indices, dtype=np.int64)
+        for seq in np.unique(wanted // CHUNK_ROWS):
+            if seq >= len(self.key_texts):
+                continue
+            texts = _decode_texts(self.key_texts[int(seq)])
+            for index in wanted[wanted // CHUNK_ROWS == seq]:
+                joined = texts[int(index - seq * CHUNK_ROWS)].as_py()
+                result[int(index)] = [None if part == EMPTY_MARK else part
+                                      for part in (joined or "").split(SEPARATOR)]
+        return [result.get(int(i), []) for i in wanted]
+
+    def to_chunks(self) -> list[tuple[str, int, bytes]]:
+        """(kind, seq, data) rows for the store's ``digest_chunks``."""
+        meta = {"format": FORMAT, "key": self.key, "columns": self.columns, "rows": self.rows,
+                "chunk_rows": CHUNK_ROWS, "cell_digests": self.cells is not None,
+                "method": "SipHash-2-4 x 2 of cells joined by U+001F"}
+        chunks = [("meta", 0, json.dumps(meta).encode())]
+        for seq, start in enumerate(range(0, self.rows, CHUNK_ROWS), start=1):
+            stop = start + CHUNK_ROWS
+            chunks.append(("records", seq, self.digests[start:stop].astype("<u8").tobytes()))
+            if seq - 1 < len(self.key_texts):
+                chunks.append(("keys", seq, self.key_texts[seq - 1]))
+            if self.cells is not None:
+                chunks.append(("columns", seq, self.cells[start:stop].astype("<u2").tobytes()))
+        return chunks
+
+    @classmethod
+    def from_chunks(cls, chunks: list[tuple[str, int, bytes]]) -> Records:
+        import numpy as np
+
+        by_kind: dict[str, dict[int, bytes]] = {}
+        for kind, seq, data in chunks:
+            by_kind.setdefault(kind, {})[seq] = data
+        if 0 not in by_kind.get("meta", {}):
+            return cls(key=[], columns=[], digests=np.zeros((0, 4), dtype=np.uint64))
+        meta = json.loads(by_kind["meta"][0])
+        records = by_kind.get("records", {})
+        parts = [np.frombuffer(records[s], dtype="<u8").reshape(-1, 4) for s in sorted(records)]
+        digests = np.concatenate(parts) if parts else np.zeros((0, 4), dtype=np.uint64)
+        keys = by_kind.get("keys", {})
+        cells = None
+        if meta.get("cell_digests") and by_kind.get("columns"):
+            width = len(meta["columns"])
+            stored = by_kind["columns"]
+            cells = np.concatenate([np.frombuffer(stored[s], dtype="<u2").reshape(-1, width)
+                                    for s in sorted(stored)])
+        return cls(key=list(meta["key"]), columns=list(meta["columns"]), digests=digests,
+                   key_texts=[keys[s] for s in sorted(keys)], cells=cells)
+
+
+def _encode_texts(texts: pa.Array) -> bytes:
+    import pyarrow as pa
+    import pyarrow.ipc as ipc
+
+    sink = pa.BufferOutputStream()
+    table = pa.table({"key": texts})
+    with ipc.new_stream(sink, table.schema,
+                        options=ipc.IpcWriteOptions(compression="zstd")) as writer:
+        writer.write_table(table)
+    return sink.getvalue().to_pybytes()
+
+
+def _decode_texts(data: bytes) -> pa.Array:
+    import pyarrow.ipc as ipc
+
+    return ipc.open_stream(data).read_all().column("key").combine_chunks()
+
+
+class RecordDigester:
+    """Feeds on batches in file order; ``finish()`` gives the drop's :class:`Records`."""
+
+    def __init__(self, key_columns: list[str], all_columns: list[str]) -> None:
+        self.key = list(key_columns)
+        self.columns = sorted(all_columns)
+        self.parts: list[np.ndarray] = []
+        self.cell_parts: list[np.ndarray] | None = []
+        self.texts: list[pa.Array] = []
+        self.pending_texts = 0
+        self.key_texts: list[bytes] = []
+        self.rows = 0
+
+    def update(self, batch: pa.RecordBatch) -> None:
+        import numpy as np
+
+        names = batch.schema.names
+        missing = [c for c in self.key if c not in names]
+        n = batch.num_rows
+        if missing:
+            key_digests = np.zeros((n, 2), dtype=np.uint64)
+            key_text = join_cells([_null_strings(n)])
+        else:
+            key_cells = [batch.column(names.index(c)) for c in self.key]
+            key_digests = digest_values(key_cells)
+            key_text = join_cells(key_cells)
+        present = [c for c in self.columns if c in names]
+        row_cells = [batch.column(names.index(c)) for c in present]
+        row_digests = digest_strings(join_cells(row_cells)) if row_cells else np.zeros((n, 2), np.uint64)
+        self.parts.append(np.hstack([key_digests, row_digests]))
+        self.rows += n
+        if self.cell_parts is not None:
+            if self.rows * max(len(self.columns), 1) > COLUMN_DIGEST_CELLS:
+                self.cell_parts = None
+            else:
+                cells = np.zeros((n, len(self.columns)), dtype=np.uint16)
+                for i, name in enumerate(self.columns):
+                    if name in names:
+                        cells[:, i] = cell_digests(batch.column(names.index(name)))
+                self.cell_parts.append(cells)
+        self._add_texts(key_text)
+
+    def _add_texts(self, texts: pa.Array) -> None:
+        import pyarrow as pa
+
+        self.texts.append(texts)
+        self.pending_texts += len(texts)
+        while self.pending_texts >= CHUNK_ROWS:
+            joined = pa.concat_arrays([t.cast(pa.large_string()) for t in self.texts])
+            self.key_texts.append(_encode_texts(joined.slice(0, CHUNK_ROWS)))
+            rest = joined.slice(CHUNK_ROWS)
+            self.texts, self.pending_texts = [rest], len(rest)
+
+    def finish(self) -> Records:
+        import numpy as np
+        import pyarrow as pa
+
+        if self.pending_texts:
+            joined = pa.concat_arrays([t.cast(pa.large_string()) for t in self.texts])
+            self.key_texts.append(_encode_texts(joined))
+            self.texts, self.pending_texts = [], 0
+        digests = np.concatenate(self.parts) if self.parts else np.zeros((0, 4), dtype=np.uint64)
+        self.parts = []
+        cells = None
+        if self.cell_parts is not None:
+            cells = (np.concatenate(self.cell_parts) if self.cell_parts
+                     else np.zeros((0, len(self.columns)), dtype=np.uint16))
+        return Records(key=self.key, columns=self.columns, digests=digests,
+                       key_texts=self.key_texts, cells=cells)
+
+
+def _null_strings(n: int) -> pa.Array:
+    import pyarrow as pa
+
+    return pa.nulls(n, pa.string())
+
+
+def unique_keys(digests: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Positions of the first record of each distinct non-empty key, sorted by key digest; and the
+    number of later repeats of a key (they take no part in the comparison)."""
+    import numpy as np
+
+    k0, k1 = digests[:, 0], digests[:, 1]
+    keyed = np.flatnonzero((k0 != 0) | (k1 != 0))
+    # lexsort: last key is primary; position breaks ties so the first occurrence comes first
+    order = keyed[np.lexsort((keyed, k1[keyed], k0[keyed]))]
+    if len(order) == 0:
+        return order, np.zeros(0, dtype=np.int64)
+    first = np.ones(len(order), dtype=bool)
+    first[1:] = (k0[order[1:]] != k0[order[:-1]]) | (k1[order[1:]] != k1[order[:-1]])
+    return order[first], order[~first]
+
+
+def lookup(sorted_keys: np.ndarray, wanted: np.ndarray) -> np.ndarray:
+    """For each wanted (k0, k1), its index in ``sorted_keys`` ((m, 2), sorted by k0 then k1), or -1."""
+    import numpy as np
+
+    k0 = np.ascontiguousarray(sorted_keys[:, 0])
+    found = np.full(len(wanted), -1, dtype=np.int64)
+    if len(k0) == 0 or len(wanted) == 0:
+        return found
+    start = np.searchsorted(k0, wanted[:, 0], side="left")
+    stop = np.searchsorted(k0, wanted[:, 0], side="right")
+    # within a run of equal k0 (practically always length 0 or 1) find k1; runs longer than one are
+    # walked position by position, which is a handful of steps at most
+    candidate = start.copy()
+    active = candidate < stop
+    while active.any():
+        idx = np.flatnonzero(active)
+        hit = sorted_keys[candidate[idx], 1] == wanted[idx, 1]
+        found[idx[hit]] = candidate[idx[hit]]
+        candidate[idx] += 1
+        active[idx[hit]] = False
+        active &= candidate < stop
+    return found
+
+
+@dataclass
+class RecordComparison:
+    new: int
+    vanished: int
+    changed: int
+    unchanged: int
+    repeated_earlier: int
+    repeated_later: int
+    no_key_later: int
+    new_rows: np.ndarray  # 0-based positions in the later drop, ascending
+    vanished_rows: np.ndarray  # 0-based positions in the earlier drop, ascending
+    changed_rows: np.ndarray  # 0-based positions in the later drop, ascending
+    changed_pairs: np.ndarray  # (positions in later, positions in earlier) for changed_rows
+    # {column: number of changed records where that column changed}, or None when unknown
+    changed_columns: dict[str, int] | None
+    columns_added: list[str]
+    columns_removed: list[str]
+
+    def examples(self, earlier: Records, later: Records, limit: int = EXAMPLES) -> dict[str, Any]:
+        """Example rows (1-based) and keys of new, vanished and changed records."""
+        def listing(records: Records, positions: np.ndarray) -> list[dict[str, Any]]:
+            shown = positions[:limit]
+            keys = records.key_text(shown)
+            return [{"row": int(p) + 1, "key": _key_value(k)} for p, k in zip(shown, keys)]
+
+        changed = listing(later, self.changed_rows)
+        if self.changed_columns is not None and later.cells is not None and earlier.cells is not None:
+            pairs = self.changed_pairs[:limit]
+            for item, (mine, theirs) in zip(changed, pairs):
+                item["columns"] = _differing(earlier, later, int(theirs), int(mine))
+        return {"new_examples": listing(later, self.new_rows),
+                "vanished_examples": listing(earlier, self.vanished_rows),
+                "changed_examples": changed}
+
+
+def _key_value(parts: list[str | None]) -> Any:
+    return parts[0] if len(parts) == 1 else parts
+
+
+def _common_columns(earlier: Records, later: Records) -> list[tuple[str, int, int]]:
+    earlier_index = {c: i for i, c in enumerate(earlier.columns)}
+    return [(c, earlier_index[c], j) for j, c in enumerate(later.columns) if c in earlier_index]
+
+
+def _differing(earlier: Records, later: Records, earlier_pos: int, later_pos: int) -> list[str]:
+    return [c for c, i, j in _common_columns(earlier, later)
+            if earlier.cells[earlier_pos, i] != later.cells[later_pos, j]]
+
+
+def compare_records(earlier: Records, later: Records) -> RecordComparison:
+    """Which records of the later drop are new, which of the earlier drop vanished, which changed.
+
+    One pass: both drops' keys are sorted once (numpy lexsort) and the later keys are located among
+    the earlier ones by binary search; row digests are compared at the matched positions.
+    """
+    import numpy as np
+
+    earlier_first, earlier_repeats = unique_keys(earlier.digests)
+    later_first, later_repeats = unique_keys(later.digests)
+    earlier_sorted = earlier.digests[earlier_first]
+    later_keys = later.digests[later_first]
+    found = lookup(earlier_sorted[:, :2], later_keys[:, :2])
+    matched = found >= 0
+    new_rows = np.sort(later_first[~matched])
+    seen = np.zeros(len(earlier_first), dtype=bool)
+    seen[found[matched]] = True
+    vanished_rows = np.sort(earlier_first[~seen])
+    mine = later_first[matched]
+    theirs = earlier_first[found[matched]]
+    differs = np.any(later.digests[mine, 2:] != earlier.digests[theirs, 2:], axis=1)
+    order = np.argsort(mine[differs], kind="stable")
+    changed_mine, changed_theirs = mine[differs][order], theirs[differs][order]
+    changed_columns = None
+    if earlier.cells is not None and later.cells is not None:
+        common = _common_columns(earlier, later)
+        changed_columns = {}
+        for name, i, j in common:
+            count = int(np.count_nonzero(earlier.cells[changed_theirs, i] != later.cells[changed_mine, j]))
+            if count:
+                changed_columns[name] = count
+    no_key = int(np.count_nonzero((later.digests[:, 0] == 0) & (later.digests[:, 1] == 0)))
+    return RecordComparison(
+        new=int(len(new_rows)), vanished=int(len(vanished_rows)), changed=int(len(changed_mine)),
+        unchanged=int(matched.sum() - len(changed_mine)),
+        repeated_earlier=int(len(earlier_repeats)), repeated_later=int(len(later_repeats)),
+        no_key_later=no_key, new_rows=new_rows, vanished_rows=vanished_rows,
+        changed_rows=changed_mine, changed_pairs=np.column_stack([changed_mine, changed_theirs]),
+        changed_columns=changed_columns,
+        columns_added=[c for c in later.columns if c not in earlier.columns],
+        columns_removed=[c for c in earlier.columns if c not in later.columns],
+    )
+
+
+class OrphanCheck:
+    """A foreign key's values looked up among the referenced table's key digests, batch by batch."""
+
+    def __init__(self, column: str, parent_keys: np.ndarray, key_columns: list[str]) -> None:
+        self.column = column
+        self.key_columns = key_columns
+        first, _ = unique_keys(parent_keys)
+        self.parent = parent_keys[first, :2]
+        self.count = 0
+        self.rows: list[int] = []
+        self.keys: list[Any] = []
+        self.values: list[str] = []
+        self.seen_rows = 0
+
+    def update(self, batch: pa.RecordBatch) -> None:
+        import numpy as np
+        import pyarrow as pa
+
+        names = batch.schema.names
+        if self.column not in names:
+            self.seen_rows += batch.num_rows
+            return
+        values = _as_strings(batch.column(names.index(self.column)))
+        digests = digest_values([values])
+        present = (digests[:, 0] != 0) | (digests[:, 1] != 0)
+        orphan = present & (lookup(self.parent, digests) < 0)
+        positions = np.flatnonzero(orphan)
+        self.count += int(len(positions))
+        room = EXAMPLES - len(self.rows)
+        if room > 0 and len(positions):
+            shown = positions[:room]
+            self.rows.extend(int(p) + self.seen_rows + 1 for p in shown)
+            self.values.extend(values.take(pa.array(shown)).to_pylist())
+            if self.key_columns and all(c in names for c in self.key_columns):
+                cells = [batch.column(names.index(c)).take(pa.array(shown)).to_pylist()
+                         for c in self.key_columns]
+                self.keys.extend(_key_value(list(parts)) for parts in zip(*cells))
+        self.seen_rows += batch.num_rows

@@ -1,0 +1,134 @@
+"""Record digests: planted new, vanished and changed records (composite key), store round trip,
+the digest against its definition, and foreign-key lookups."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pyarrow as pa
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from studylog.data import digests
+from studylog.data.digests import (
+    OrphanCheck,
+    RecordDigester,
+    Records,
+    compare_records,
+    digest_strings,
+    digest_values,
+)
+
+
+def records(table: pa.Table, key: list[str], batch: int = 4) -> Records:
+    digester = RecordDigester(key, table.column_names)
+    for part in table.to_batches(max_chunksize=batch):
+        digester.update(part)
+    return digester.finish()
+
+
+def seeded_drop(n: int, seed: int) -> pd.DataFrame:
+    rng = np.random.default_rng(seed)
+    return pd.DataFrame({
+        "site": np.where(np.arange(n) % 2 == 0, "north", "south"),
+        "member": [f"M{i // 2:05d}" for i in range(n)],
+        "age": rng.integers(18, 90, n).astype(str),
+        "plan": rng.choice(["basic", "plus"], n),
+    })
+
+
+def test_digest_is_siphash_of_joined_cells() -> None:
+    # definition (module docstring): SipHash-2-4 under the two fixed keys of the cells joined by U+001F;
+    # pandas' hash_array is the reference implementation of the hash
+    got = digest_strings(digests.join_cells([pa.array(["a", "b"]), pa.array(["x", None])]))
+    joined = np.array(["a\x1fx", "b\x1f\x1e"], dtype=object)
+    for i, key in enumerate(digests.HASH_KEYS):
+        assert got[:, i].tolist() == pd.util.hash_array(joined, hash_key=key, categorize=False).tolist()
+    # a single-column key is the digest of the cell alone (what foreign-key lookups rely on)
+    assert digest_values([pa.array(["a"])]).tolist() == digest_strings(pa.array(["a"])).tolist()
+    # a key with an empty cell gets the zero digest and takes no part in comparisons
+    assert digest_values([pa.array(["a", "b"]), pa.array(["x", None])])[1].tolist() == [0, 0]
+
+
+def test_planted_new_vanished_changed_with_composite_key() -> None:
+    earlier = seeded_drop(200, 1)
+    later = earlier.copy()
+    later.loc[[10, 11, 50], "age"] = ["999", "998", "997"]  # three changed records
+    later.loc[70, "plan"] = "gold"  # a fourth, in another column
+    vanished = later.index[[5, 120]]
+    later = later.drop(index=vanished)
+    new = pd.DataFrame({"site": ["east", "west"], "member": ["M90000", "M00001"],
+                        "age": ["40", "41"], "plan": ["basic", "plus"]})
+    later = pd.concat([later, new], ignore_index=True)
+    later = later[["plan", "age", "member", "site"]]  # column order does not matter
+    key = ["site", "member"]
+    before = records(pa.Table.from_pandas(earlier, preserve_index=False), key, batch=33)
+    after = records(pa.Table.from_pandas(later, preserve_index=False), key, batch=17)
+    result = compare_records(Records.from_chunks(before.to_chunks()), after)
+    assert (result.new, result.vanished, result.changed) == (2, 2, 4)
+    assert result.unchanged == 200 - 2 - 4 and result.repeated_later == 0
+    assert result.changed_columns == {"age": 3, "plan": 1}
+    examples = result.examples(Records.from_chunks(before.to_chunks()), after)
+    assert examples["new_examples"] == [{"row": 199, "key": ["east", "M90000"]},
+                                        {"row": 200, "key": ["west", "M00001"]}]
+    assert examples["vanished_examples"] == [{"row": 6, "key": ["south", "M00002"]},
+                                             {"row": 121, "key": ["north", "M00060"]}]
+    assert [e["key"] for e in examples["changed_examples"]] == [
+        ["north", "M00005"], ["south", "M00005"], ["north", "M00025"], ["north", "M00035"]]
+    assert examples["changed_examples"][3]["columns"] == ["plan"]
+    # a key repeated within the later drop is compared once, by its first row
+    repeated = pd.concat([later, later.iloc[[0]]], ignore_index=True)
+    again = compare_records(before, records(pa.Table.from_pandas(repeated, preserve_index=False), key))
+    assert (again.new, again.changed, again.repeated_later) == (2, 4, 1)
+
+
+def test_large_drops_keep_no_cell_digests(monkeypatch) -> None:  # type: ignore[no-untyped-def]
+    monkeypatch.setattr(digests, "COLUMN_DIGEST_CELLS", 100)
+    frame = seeded_drop(60, 3)
+    before = records(pa.Table.from_pandas(frame, preserve_index=False), ["site", "member"])
+    frame.loc[3, "age"] = "1000"
+    after = records(pa.Table.from_pandas(frame, preserve_index=False), ["site", "member"])
+    assert before.cells is None
+    result = compare_records(before, after)
+    assert result.changed == 1 and result.changed_columns is None
+
+
+def test_chunks_round_trip_across_chunk_boundaries(monkeypatch) -> None:  # type: ignore[no-untyped-def]
+    monkeypatch.setattr(digests, "CHUNK_ROWS", 7)
+    frame = seeded_drop(30, 4)
+    stored = records(pa.Table.from_pandas(frame, preserve_index=False), ["site", "member"], batch=5)
+    chunks = stored.to_chunks()
+    assert sum(1 for kind, _, _ in chunks if kind == "records") == 5
+    back = Records.from_chunks(chunks)
+    assert np.array_equal(back.digests, stored.digests)
+    assert np.array_equal(back.cells, stored.cells)
+    assert back.key_text(np.array([0, 8, 29])) == [["north", "M00000"], ["north", "M00004"],
+                                                   ["south", "M00014"]]
+
+
+@settings(max_examples=40, deadline=None)
+@given(st.sets(st.integers(0, 60), max_size=40), st.sets(st.integers(0, 60), max_size=40),
+       st.sets(st.integers(0, 60), max_size=20))
+def test_comparison_equals_set_arithmetic(before: set[int], after: set[int], touched: set[int]) -> None:
+    # reference: Python set operations on the keys themselves
+    def table(keys: set[int], bump: set[int]) -> pa.Table:
+        ordered = sorted(keys)
+        return pa.table({"id": [str(k) for k in ordered],
+                         "v": [str(k + (1000 if k in bump else 0)) for k in ordered]})
+
+    result = compare_records(records(table(before, set()), ["id"], 3),
+                             records(table(after, touched), ["id"], 5))
+    assert result.new == len(after - before)
+    assert result.vanished == len(before - after)
+    assert result.changed == len(after & before & touched)
+
+
+def test_orphans_against_parent_keys() -> None:
+    parent = records(pa.table({"member": ["M1", "M2", "M3"], "age": ["1", "2", "3"]}), ["member"])
+    check = OrphanCheck("member", parent.digests, ["visit"])
+    child = pa.table({"visit": ["V1", "V2", "V3", "V4", "V5"],
+                      "member": ["M1", "M9", "", "M3", "M7"]})
+    for part in child.to_batches(max_chunksize=2):
+        check.update(part)
+    assert check.count == 2  # the empty foreign key is a missing value, not an orphan
+    assert check.rows == [2, 5] and check.keys == ["V2", "V5"] and check.values == ["M9", "M7"]
