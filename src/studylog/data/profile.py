@@ -1,0 +1,279 @@
+"""The initial-analysis profile of a table: every variable, the target, pairs, group comparisons, and the
+things to review.
+
+Input: a pyarrow Table whose columns are all text (null where the cell is empty), and one
+:class:`~studylog.data.spec.VariableSpec` per column (from the dictionary, or built from inference), plus
+missing codes that inference proposed. Output: the ``profile --json`` document of the command contract.
+Pure computation: no store, no printing. Definitions: see :mod:`studylog.data.univariate` and
+:mod:`studylog.data.pairs`.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from typing import Any
+
+import numpy as np
+import pyarrow as pa
+
+from studylog.data import pairs, significance, suggest, univariate
+from studylog.data.spec import LEVEL_TYPES, NUMERIC_TYPES, VariableSpec
+from studylog.errors import UsageError
+
+CLASS_LIKE_MAX_DISTINCT = 10  # a numeric target with this few values also gets class counts
+LEAKAGE_STRENGTH = 0.9
+MAX_GROUPS = 50
+
+
+def _number(text: str | None) -> float | None:
+    if text is None:
+        return None
+    try:
+        value = float(text)
+    except ValueError:
+        return None
+    return value if math.isfinite(value) else None
+
+
+def _ordinal_rank(levels: Sequence[str], spec: VariableSpec) -> np.ndarray:
+    """Position of each observed level in the variable's order: declared levels first (in their order),
+    else numeric order when every level is a number, else text order; unknown levels last."""
+    declared = {code.code: (code.order if code.order is not None else i) for i, code in enumerate(spec.levels)}
+    if declared:
+        keys = [(0, declared[v], "") if v in declared else (1, 0, v) for v in levels]
+    elif levels and all(_number(v) is not None for v in levels):
+        keys = [(0, _number(v), "") for v in levels]
+    else:
+        keys = [(0, 0, v) for v in levels]
+    order = sorted(range(len(levels)), key=lambda i: keys[i])
+    rank = np.empty(len(levels), dtype=np.int64)
+    rank[order] = np.arange(len(levels))
+    return rank
+
+
+class _Column:
+    """What the pair and target steps need from one profiled column."""
+
+    def __init__(self, name: str, spec: VariableSpec, entry: dict[str, Any]) -> None:
+        self.name = name
+        self.spec = spec
+        self.entry = entry
+        self.base: pairs.RankBase | None = None
+        self.levels: pairs.LevelColumn | None = None
+
+
+def _profile_column(name: str, strings: pa.ChunkedArray, spec: VariableSpec,
+                    inferred_codes: Sequence[str]) -> _Column:
+    declared = [code.code for code in spec.missing_codes]
+    extra = [code for code in inferred_codes if code not in declared]
+    missing = univariate.find_missing(strings, declared + extra)
+    rows = len(strings)
+    codes = [dict(c, declared=c["code"] in declared) for c in missing.codes]
+    entry: dict[str, Any] = {
+        "name": name, "type": spec.type, "role": spec.role, "rows": rows,
+        "count": rows - missing.count, "missing": missing.count, "missing_empty": missing.blank,
+        "missing_codes": codes, "invalid": 0, "invalid_examples": [],
+    }
+    column = _Column(name, spec, entry)
+    masked = spec.masked
+    kind = spec.type
+    if kind in NUMERIC_TYPES:
+        values, invalid = univariate.parse_numbers(strings, missing.mask)
+        if kind == "integer":
+            fractional = np.isfinite(values) & (values != np.floor(values))
+            invalid |= fractional
+            values[fractional] = np.nan
+        column.base = pairs.RankBase.of(values)
+        entry.update(univariate.numeric_summary(column.base.sorted_values, kind == "integer"))
+        entry["invalid"] = int(invalid.sum())
+        entry["invalid_examples"] = univariate.invalid_examples(strings, invalid, masked)
+        entry["impossible"] = _impossible(column.base.sorted_values, spec)
+        if masked:
+            for key in ("min", "max"):
+                entry[key] = None
+    elif kind in ("date", "datetime"):
+        seconds = univariate.parse_dates(strings, spec, kind)
+        seconds[missing.mask] = np.nan
+        invalid = ~missing.mask & np.isnan(seconds)
+        entry.update(univariate.date_summary(np.sort(seconds[~np.isnan(seconds)]), kind))
+        entry["invalid"] = int(invalid.sum())
+        entry["invalid_examples"] = univariate.invalid_examples(strings, invalid, masked)
+    elif kind in LEVEL_TYPES or kind == "boolean":
+        levels, counts, level_codes = univariate.level_counts(strings, missing.mask)
+        entry.update(univariate.level_summary(levels, counts, masked, kind))
+        if kind == "boolean" and (spec.true_values or spec.false_values):
+            truth = np.isin(np.asarray(levels, dtype=object), list(spec.true_values))
+            falsity = np.isin(np.asarray(levels, dtype=object), list(spec.false_values))
+            entry["true"] = int(counts[truth].sum())
+            entry["false"] = int(counts[falsity].sum())
+            entry["invalid"] = int(counts[~truth & ~falsity].sum())
+        if kind in LEVEL_TYPES and spec.levels:
+            known = np.isin(np.asarray(levels, dtype=object), [code.code for code in spec.levels])
+            entry["undeclared_levels"] = int(counts[~known].sum())
+        rank = _ordinal_rank(levels, spec) if kind == "ordinal" else None
+        column.levels = pairs.LevelColumn(name, level_codes, len(levels), rank)
+    else:  # text, identifier
+        entry.update(univariate.text_summary(strings, missing.mask))
+        entry["near_zero_variance"] = False
+    return column
+
+
+def _impossible(sorted_values: np.ndarray, spec: VariableSpec) -> dict[str, int] | None:
+    """Values outside the declared possible range (minimum, maximum)."""
+    low, high = _number(spec.minimum), _number(spec.maximum)
+    if low is None and high is None:
+        return None
+    below = int(np.searchsorted(sorted_values, low, side="left")) if low is not None else 0
+    above = sorted_values.size - int(np.searchsorted(sorted_values, high, side="right")) if high is not None else 0
+    return {"below_minimum": below, "above_maximum": above}
+
+
+def _as_levels(column: _Column, strings: pa.ChunkedArray) -> pairs.LevelColumn:
+    """Level indices of any column (a numeric grouping column or target is grouped by its texts)."""
+    if column.levels is not None:
+        return column.levels
+    missing = np.asarray(
+        univariate.find_missing(strings, [c["code"] for c in column.entry["missing_codes"]]).mask
+    )
+    levels, _counts, codes = univariate.level_counts(strings, missing)
+    return pairs.LevelColumn(column.name, codes, len(levels), extra={"levels": levels})
+
+
+def _target_section(column: _Column, strings: pa.ChunkedArray) -> tuple[dict[str, Any], pairs.LevelColumn | None]:
+    entry = column.entry
+    section: dict[str, Any] = {"name": column.name, "type": column.spec.type, "count": entry["count"],
+                               "missing": entry["missing"]}
+    class_like = column.spec.type in LEVEL_TYPES or column.spec.type == "boolean" or (
+        column.spec.type in NUMERIC_TYPES and 0 < (entry.get("distinct") or 0) <= CLASS_LIKE_MAX_DISTINCT
+    )
+    levels = None
+    if column.spec.type in NUMERIC_TYPES:
+        section["distribution"] = {key: entry.get(key) for key in (
+            "min", "q1", "median", "q3", "max", "mean", "sd", "skewness", "kurtosis", "histogram")}
+    if class_like:
+        levels = _as_levels(column, strings)
+        counts = np.bincount(levels.codes[levels.codes >= 0], minlength=levels.levels)
+        names = levels.extra.get("levels") if column.levels is None else None
+        if names is None:
+            names = [level["value"] for level in entry["levels"]]
+            lookup = {level["value"]: level["count"] for level in entry["levels"]}
+            classes = [{"value": v, "count": lookup[v]} for v in names]
+        else:
+            order = np.lexsort((np.asarray(names, dtype=object).astype(str), -counts))
+            classes = [{"value": names[i], "count": int(counts[i])} for i in order if counts[i] > 0]
+        total = sum(c["count"] for c in classes)
+        for c in classes:
+            c["share"] = c["count"] / total if total else None
+        section["classes"] = classes
+        present = [c["count"] for c in classes if c["count"] > 0]
+        section["imbalance_ratio"] = max(present) / min(present) if len(present) >= 2 else None
+    return section, levels
+
+
+def _leakage(columns: Sequence[_Column], target: _Column, target_levels: pairs.LevelColumn | None,
+             table: pa.Table, correlation_pairs: Sequence[dict[str, Any]]) -> list[dict[str, Any]]:
+    """Inputs nearly determined by the target (association >= 0.9), and inputs available after the
+    index time: eta^2 (numeric input, class target), bias-corrected Cramer's V (categorical input,
+    class target), r^2 (numeric input, numeric target)."""
+    found: list[dict[str, Any]] = []
+    r_with_target = {
+        (p["b"] if p["a"] == target.name else p["a"]): p["pearson"]
+        for p in correlation_pairs if target.name in (p["a"], p["b"]) and p["pearson"] is not None
+    }
+    for column in columns:
+        if column is target or column.spec.role in ("identifier", "excluded", "target"):
+            continue
+        if getattr(column.spec, "availability", None) == "after":
+            found.append({"variable": column.name, "reason": "available after the index time",
+                          "measure": None, "value": None})
+        measure, value = None, None
+        if target_levels is not None and column.base is not None:
+            rows = np.flatnonzero(column.base.valid & (target_levels.codes >= 0))
+            if rows.size >= pairs.MIN_PAIR_CASES:
+                present, groups = np.unique(target_levels.codes[rows], return_inverse=True)
+                result = significance.anova(groups, column.base.values[rows], int(present.size))
+                measure, value = "eta_squared", (result["eta_squared"] if result else None)
+        elif target_levels is not None and column.levels is not None:
+            result = pairs.associations([column.levels, target_levels])
+            if result:
+                measure, value = "cramers_v_corrected", result[0]["cramers_v_corrected"]
+        elif column.name in r_with_target:
+            measure, value = "r_squared", r_with_target[column.name] ** 2
+        if value is not None and value >= LEAKAGE_STRENGTH:
+            found.append({"variable": column.name, "reason": "nearly determined by the target",
+                          "measure": measure, "value": value})
+    return found
+
+
+def profile_table(
+    table: pa.Table,
+    specs: Mapping[str, VariableSpec],
+    *,
+    target: str | None = None,
+    by: str | None = None,
+    strong: float = pairs.DEFAULT_STRONG,
+    inferred_missing: Mapping[str, Sequence[str]] | None = None,
+    weight: str | None = None,
+) -> dict[str, Any]:
+    """The whole profile as the contract's JSON document (numbers may still be numpy/NaN: see clean)."""
+    names = list(table.column_names)
+    for option, name in (("--target", target), ("--by", by)):
+        if name is not None and name not in names:
+            raise UsageError(f"{option} {name}: no such column (columns: {', '.join(names[:20])})")
+    if not 0 < strong <= 1:
+        raise UsageError(f"--strong {strong}: must be above 0 and at most 1")
+    inferred_missing = inferred_missing or {}
+    columns = [
+        _profile_column(name, table.column(name), specs.get(name) or VariableSpec(name=name, type="text"),
+                        inferred_missing.get(name, ()))
+        for name in names
+    ]
+    by_name = {c.name: c for c in columns}
+    numeric = [
+        pairs.NumericColumn(c.name, c.base, c.entry["missing"],
+                            is_input=c.name != target and c.spec.role not in ("target", "identifier", "excluded"))
+        for c in columns if c.base is not None and c.spec.role not in ("identifier", "excluded")
+    ]
+    correlation = pairs.correlations(numeric, strong)
+    level_columns = [c.levels for c in columns if c.levels is not None and c.spec.role not in ("identifier", "excluded")]
+    document: dict[str, Any] = {
+        "rows": table.num_rows,
+        "columns": table.num_columns,
+        "variables": [c.entry for c in columns],
+        "target": None,
+        "correlations": correlation["pairs"],
+        "correlations_columns": {"numeric": correlation["columns_numeric"], "used": correlation["columns_used"]},
+        "associations": pairs.associations(level_columns),
+        "groups": None,
+        "leakage": [],
+    }
+    if target is not None:
+        section, target_levels = _target_section(by_name[target], table.column(target))
+        document["target"] = section
+        document["leakage"] = _leakage(columns, by_name[target], target_levels, table, correlation["pairs"])
+    if by is not None:
+        grouping = _as_levels(by_name[by], table.column(by))
+        if grouping.levels > MAX_GROUPS:
+            raise UsageError(f"--by {by}: {grouping.levels} groups; at most {MAX_GROUPS} can be compared")
+        document["groups"] = pairs.group_comparisons(grouping, numeric)
+    if weight is not None:
+        document["unweighted"] = f"the profile is unweighted; {weight} is a weight variable"
+    document["suggestions"] = suggest.suggestions(document, {c.name: c.spec for c in columns})
+    return clean(document)
+
+
+def clean(value: Any) -> Any:
+    """JSON-ready: numpy scalars to Python numbers, NaN and infinities to None."""
+    if isinstance(value, dict):
+        return {k: clean(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [clean(v) for v in value]
+    if isinstance(value, (np.bool_, bool)):
+        return bool(value)
+    if isinstance(value, (np.integer,)):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        number = float(value)
+        return number if math.isfinite(number) else None
+    return value

@@ -1,0 +1,463 @@
+"""One variable at a time: counts, missing codes, the numeric summary, levels, dates, normality.
+
+The definitions are part of the product (DESIGN.md, "Statistical definitions") and stated in
+``studylog profile --help``:
+
+- quantiles by linear interpolation, Hyndman & Fan (1996) type 7 (numpy's default), at rank
+  1 + (n - 1) p; the NIST e-Handbook's p(N + 1) definition (type 6) is available as ``quantile_type6``;
+- standard deviation with n - 1; skewness as the adjusted Fisher-Pearson coefficient G1; kurtosis as the
+  adjusted excess kurtosis G2 (0 for a normal distribution);
+- Tukey's fences on Tukey's hinges (the medians of the lower and upper halves, the median included in both
+  halves when n is odd, as box plots draw them): inner fences 1.5 x the hinge spread beyond the hinges,
+  outer fences 3 x; ``tukey`` counts values beyond the inner fences, ``tukey_far`` beyond the outer;
+- modified z-score M = 0.6745 (x - median) / MAD, flagged when |M| > 3.5 (Iglewicz & Hoaglin 1993); when
+  MAD = 0 (half the values or more equal the median) M is undefined and the count is null, with a note;
+- near-zero variance: frequency ratio (most common / second most common value) > 95/5 and distinct values
+  fewer than 10% of the present values (Kuhn & Johnson 2013, section 3.5);
+- normality: Shapiro-Wilk for 3 <= n <= 5000, D'Agostino-Pearson K^2 above.
+
+Everything here is vectorised (pyarrow.compute, numpy): no Python loop over rows.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+
+from studylog.data.spec import VariableSpec
+
+SHAPIRO_MAX_N = 5000
+MODIFIED_Z_CONSTANT = 0.6745
+MODIFIED_Z_LIMIT = 3.5
+TUKEY_INNER = 1.5
+TUKEY_OUTER = 3.0
+NZV_FREQUENCY_RATIO = 95 / 5
+NZV_DISTINCT_SHARE = 0.10
+MANY_LEVELS = 50
+HISTOGRAM_MAX_BINS = 50
+LEVELS_KEPT = 1000
+INVALID_EXAMPLES = 5
+LARGE_N_CAUTION = (
+    "at large n a normality test finds trivial departures significant; judge by skewness, kurtosis "
+    "and a plot"
+)
+MAD_ZERO_NOTE = "MAD is 0 (half the values or more equal the median): the modified z-score is undefined"
+# a number as text: optional sign, digits with an optional decimal point, optional exponent
+NUMBER_PATTERN = r"^[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?$"
+
+
+# --------------------------------------------------------------------------------------------------
+# quantiles and summaries on sorted values
+
+
+def quantile_type7(sorted_values: np.ndarray, p: float | np.ndarray) -> float | np.ndarray:
+    """Hyndman & Fan type 7: linear interpolation at 0-based position (n - 1) p (numpy's default)."""
+    n = sorted_values.size
+    h = (n - 1) * np.asarray(p, dtype=float)
+    lo = np.floor(h).astype(np.int64)
+    hi = np.minimum(lo + 1, n - 1)
+    result = sorted_values[lo] + (h - lo) * (sorted_values[hi] - sorted_values[lo])
+    return float(result) if np.ndim(result) == 0 else result
+
+
+def quantile_type6(sorted_values: np.ndarray, p: float) -> float:
+    """NIST/SEMATECH e-Handbook 7.2.5.2: rank p (N + 1) = k + d; Y[k] + d (Y[k+1] - Y[k]), clamped."""
+    n = sorted_values.size
+    rank = p * (n + 1)
+    k = math.floor(rank)
+    d = rank - k
+    if k < 1:
+        return float(sorted_values[0])
+    if k >= n:
+        return float(sorted_values[-1])
+    return float(sorted_values[k - 1] + d * (sorted_values[k] - sorted_values[k - 1]))
+
+
+def tukey_hinges(sorted_values: np.ndarray) -> tuple[float, float]:
+    """Tukey's (1977) hinges: depth of the median (n + 1) / 2, hinge depth (floor(that) + 1) / 2."""
+    n = sorted_values.size
+    depth = (math.floor((n + 1) / 2) + 1) / 2
+    a, b = math.floor(depth) - 1, math.ceil(depth) - 1
+    lower = (sorted_values[a] + sorted_values[b]) / 2
+    upper = (sorted_values[n - 1 - a] + sorted_values[n - 1 - b]) / 2
+    return float(lower), float(upper)
+
+
+def tukey_fences(sorted_values: np.ndarray) -> dict[str, Any]:
+    """Hinges, inner and outer fences, and the counts beyond them (strictly outside)."""
+    lower, upper = tukey_hinges(sorted_values)
+    spread = upper - lower
+    inner = (lower - TUKEY_INNER * spread, upper + TUKEY_INNER * spread)
+    outer = (lower - TUKEY_OUTER * spread, upper + TUKEY_OUTER * spread)
+    n = sorted_values.size
+
+    def beyond(low: float, high: float) -> int:
+        below = int(np.searchsorted(sorted_values, low, side="left"))
+        above = n - int(np.searchsorted(sorted_values, high, side="right"))
+        return below + above
+
+    return {
+        "hinges": [lower, upper],
+        "inner_fences": list(inner),
+        "outer_fences": list(outer),
+        "tukey": beyond(*inner),
+        "tukey_far": beyond(*outer),
+    }
+
+
+def modified_z(values: np.ndarray, median: float) -> tuple[float, int | None]:
+    """MAD and the number of values with |0.6745 (x - median) / MAD| > 3.5; None when MAD = 0."""
+    deviations = np.abs(values - median)
+    mad = float(np.median(deviations))
+    if mad == 0.0:
+        return mad, None
+    # |0.6745 d / MAD| > 3.5  <=>  d > 3.5 MAD / 0.6745: no division by the data
+    limit = MODIFIED_Z_LIMIT * mad / MODIFIED_Z_CONSTANT
+    return mad, int(np.count_nonzero(deviations > limit))
+
+
+def moments(values: np.ndarray) -> dict[str, float | None]:
+    """Mean, sample sd (n - 1), skewness G1 and excess kurtosis G2 (both adjusted, as scipy bias=False)."""
+    n = values.size
+    out: dict[str, float | None] = {"mean": None, "sd": None, "skewness": None, "kurtosis": None}
+    if n == 0:
+        return out
+    mean = float(values.mean())
+    out["mean"] = mean
+    if n < 2:
+        return out
+    d = values - mean
+    d2 = d * d
+    m2 = float(d2.mean())
+    out["sd"] = math.sqrt(m2 * n / (n - 1))
+    if m2 == 0.0:
+        return out
+    if n >= 3:
+        m3 = float((d2 * d).mean())
+        g1 = m3 / m2**1.5
+        out["skewness"] = g1 * math.sqrt(n * (n - 1)) / (n - 2)
+    if n >= 4:
+        m4 = float((d2 * d2).mean())
+        g2 = m4 / (m2 * m2) - 3.0
+        out["kurtosis"] = ((n + 1) * g2 + 6.0) * (n - 1) / ((n - 2) * (n - 3))
+    return out
+
+
+def histogram(sorted_values: np.ndarray, integer: bool, iqr: float) -> dict[str, list[float]]:
+    """Equal-width bins: one per value for integers spanning <= 50 values, else max(Sturges, Freedman-
+    Diaconis) bins capped at 50; a value on an inner edge falls in the bin to its right."""
+    n = sorted_values.size
+    low, high = float(sorted_values[0]), float(sorted_values[-1])
+    if low == high:
+        return {"edges": [low, high], "counts": [n]}
+    if integer and high - low < HISTOGRAM_MAX_BINS:
+        edges = np.arange(low - 0.5, high + 1.0, 1.0)
+    else:
+        bins = math.ceil(math.log2(n)) + 1
+        if iqr > 0:
+            width = 2.0 * iqr * n ** (-1 / 3)
+            bins = max(bins, math.ceil((high - low) / width))
+        edges = np.linspace(low, high, min(bins, HISTOGRAM_MAX_BINS) + 1)
+    cuts = np.searchsorted(sorted_values, edges[1:-1], side="left")
+    bounds = np.concatenate(([0], cuts, [n]))
+    return {"edges": edges.tolist(), "counts": np.diff(bounds).tolist()}
+
+
+def run_lengths(sorted_values: np.ndarray) -> np.ndarray:
+    """How often each distinct value occurs, from sorted values."""
+    if sorted_values.size == 0:
+        return np.zeros(0, dtype=np.int64)
+    starts = np.flatnonzero(sorted_values[1:] != sorted_values[:-1]) + 1
+    return np.diff(np.concatenate(([0], starts, [sorted_values.size])))
+
+
+def near_zero_variance(counts: np.ndarray, present: int) -> dict[str, Any]:
+    """Kuhn & Johnson (2013, 3.5): frequency ratio > 95/5 and < 10% distinct; binary minority shown."""
+    distinct = int(counts.size)
+    out: dict[str, Any] = {"near_zero_variance": False, "frequency_ratio": None}
+    if present == 0 or distinct == 0:
+        return out
+    if distinct == 1:
+        # one value only: zero variance, the ratio is unbounded
+        out["near_zero_variance"] = True
+        return out
+    top_two = np.partition(counts, distinct - 2)[-2:]
+    ratio = float(top_two[1]) / float(top_two[0])
+    out["frequency_ratio"] = ratio
+    out["near_zero_variance"] = bool(ratio > NZV_FREQUENCY_RATIO and distinct / present < NZV_DISTINCT_SHARE)
+    if distinct == 2:
+        minority = int(top_two[0])
+        out["minority_count"] = minority
+        out["minority_share"] = minority / present
+    return out
+
+
+def normality(values: np.ndarray, skewness: float | None, kurtosis: float | None) -> dict[str, Any] | None:
+    """Shapiro-Wilk for 3 <= n <= 5000, D'Agostino-Pearson above; None below 3 or for constant data."""
+    from studylog.data.significance import dagostino_pearson
+
+    n = values.size
+    if n < 3 or skewness is None:
+        return None
+    if n <= SHAPIRO_MAX_N:
+        from scipy import stats
+
+        statistic, p_value = stats.shapiro(values)
+        test = "shapiro-wilk"
+    else:
+        statistic, p_value = dagostino_pearson(values)
+        test = "dagostino-pearson"
+    result: dict[str, Any] = {
+        "test": test, "statistic": float(statistic), "p_value": float(p_value), "n": int(n),
+        "skewness": skewness, "kurtosis": kurtosis,
+    }
+    if n > SHAPIRO_MAX_N:
+        result["caution"] = LARGE_N_CAUTION
+    return result
+
+
+# --------------------------------------------------------------------------------------------------
+# from strings to values
+
+
+@dataclass
+class Missing:
+    """Which cells are missing (null, blank, or a missing code) and how many of each code."""
+
+    mask: np.ndarray  # True where the cell is missing
+    blank: int
+    codes: list[dict[str, Any]]
+
+    @property
+    def count(self) -> int:
+        return int(self.mask.sum())
+
+
+def _as_bool(array: pa.ChunkedArray | pa.Array) -> np.ndarray:
+    return np.asarray(pc.fill_null(array, False).to_numpy(zero_copy_only=False), dtype=bool)
+
+
+def find_missing(strings: pa.ChunkedArray, codes: Sequence[str]) -> Missing:
+    """Missing cells: null (empty in the file), whitespace only, or equal to one of ``codes``."""
+    null = _as_bool(pc.is_null(strings))
+    blank = _as_bool(pc.utf8_is_space(strings)) | _as_bool(pc.equal(strings, ""))
+    mask = null | blank
+    counted = []
+    for code in codes:
+        hits = _as_bool(pc.equal(strings, code))
+        counted.append({"code": code, "count": int(hits.sum())})
+        mask |= hits
+    return Missing(mask=mask, blank=int(null.sum() + blank.sum()), codes=counted)
+
+
+def _writable_floats(array: pa.ChunkedArray | pa.Array) -> np.ndarray:
+    """float64 values with NaN for nulls, in memory of our own (Arrow's buffers are read-only)."""
+    values = array.to_numpy(zero_copy_only=False)
+    if not values.flags.writeable or values.dtype != np.float64:
+        values = np.array(values, dtype=np.float64)
+    return values
+
+
+def parse_numbers(strings: pa.ChunkedArray, missing: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Float values (NaN where missing or not a number) and the mask of present cells that failed."""
+    try:
+        values = _writable_floats(pc.cast(strings, pa.float64()))
+    except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
+        # the slow path: some cell is not a number (a code, a typo, spaces); parse what matches
+        trimmed = pc.utf8_trim_whitespace(strings)
+        number = pc.match_substring_regex(trimmed, NUMBER_PATTERN)
+        kept = pc.if_else(number, trimmed, pa.scalar(None, pa.string()))
+        values = _writable_floats(pc.cast(kept, pa.float64()))
+    values[missing] = np.nan
+    invalid = ~missing & ~np.isfinite(values)
+    values[invalid] = np.nan
+    return values, invalid
+
+
+def parse_dates(strings: pa.ChunkedArray, spec: VariableSpec | None, kind: str) -> np.ndarray:
+    """Seconds since 1970 as float (NaN where missing or not a valid date in the stated format)."""
+    fmt = spec.date_format if spec is not None and spec.date_format else None
+    if fmt is None and kind == "date":
+        fmt = "%Y-%m-%d"
+    if fmt is not None:
+        parsed = pc.strptime(strings, format=fmt, unit="s", error_is_null=True)
+    else:
+        try:
+            parsed = pc.cast(strings, pa.timestamp("s"))
+        except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
+            parsed = pc.coalesce(
+                pc.strptime(strings, format="%Y-%m-%dT%H:%M:%S", unit="s", error_is_null=True),
+                pc.strptime(strings, format="%Y-%m-%d %H:%M:%S", unit="s", error_is_null=True),
+                pc.strptime(strings, format="%Y-%m-%dT%H:%M", unit="s", error_is_null=True),
+                pc.strptime(strings, format="%Y-%m-%d", unit="s", error_is_null=True),
+            )
+    return _writable_floats(pc.cast(pc.cast(parsed, pa.int64()), pa.float64()))
+
+
+def invalid_examples(strings: pa.ChunkedArray, invalid: np.ndarray, masked: bool) -> list[str]:
+    """A few distinct texts that failed to parse (masked for sensitive variables)."""
+    if not invalid.any():
+        return []
+    positions = np.flatnonzero(invalid)[:1000]
+    texts = pc.unique(strings.take(pa.array(positions))).to_pylist()[:INVALID_EXAMPLES]
+    return ["[masked]" for _ in texts] if masked else [str(t) for t in texts]
+
+
+# --------------------------------------------------------------------------------------------------
+# summaries
+
+
+def numeric_summary(sorted_values: np.ndarray, integer: bool) -> dict[str, Any]:
+    """Five-number summary, moments, fences, modified z-score, histogram, near-zero variance, normality."""
+    n = sorted_values.size
+    out: dict[str, Any] = {
+        "distinct": 0, "min": None, "q1": None, "median": None, "q3": None, "max": None,
+        "mean": None, "sd": None, "skewness": None, "kurtosis": None, "deciles": None, "mad": None,
+        "outliers": {"tukey": None, "tukey_far": None, "modified_z": None},
+        "fences": None, "histogram": None, "normality": None,
+        "near_zero_variance": False, "frequency_ratio": None,
+    }
+    if n == 0:
+        return out
+    q1, median, q3 = quantile_type7(sorted_values, np.array([0.25, 0.5, 0.75])).tolist()
+    counts = run_lengths(sorted_values)
+    out.update(
+        distinct=int(counts.size), min=float(sorted_values[0]), q1=q1, median=median, q3=q3,
+        max=float(sorted_values[-1]),
+        deciles=quantile_type7(sorted_values, np.arange(1, 10) / 10).tolist(),
+    )
+    out.update(moments(sorted_values))
+    fences = tukey_fences(sorted_values)
+    mad, modified = modified_z(sorted_values, median)
+    out["mad"] = mad
+    out["outliers"] = {"tukey": fences.pop("tukey"), "tukey_far": fences.pop("tukey_far"), "modified_z": modified}
+    if modified is None:
+        out["outliers"]["modified_z_note"] = MAD_ZERO_NOTE
+    out["fences"] = fences
+    out["histogram"] = histogram(sorted_values, integer, q3 - q1)
+    out.update(near_zero_variance(counts, n))
+    out["normality"] = normality(sorted_values, out["skewness"], out["kurtosis"])
+    out["negative"] = int(np.searchsorted(sorted_values, 0.0, side="left"))
+    return out
+
+
+def level_counts(strings: pa.ChunkedArray, missing: np.ndarray) -> tuple[list[str], np.ndarray, np.ndarray]:
+    """Distinct present texts, their counts, and each row's level index (-1 where missing)."""
+    encoded = pc.dictionary_encode(strings).combine_chunks()
+    levels = encoded.dictionary.to_pylist()
+    indices = encoded.indices
+    codes = np.asarray(pc.fill_null(indices, -1).to_numpy(zero_copy_only=False), dtype=np.int64)
+    codes[missing] = -1
+    counts = np.bincount(codes[codes >= 0], minlength=len(levels))
+    return levels, counts, codes
+
+
+def variants(levels: Sequence[str], counts: np.ndarray) -> list[list[str]]:
+    """Groups of present values that differ only by letter case or surrounding whitespace."""
+    import pandas as pd
+
+    present = counts > 0
+    if present.sum() < 2:
+        return []
+    frame = pd.DataFrame({"value": np.asarray(levels, dtype=object)[present], "count": counts[present]})
+    frame["key"] = frame["value"].str.strip().str.casefold()
+    sizes = frame.groupby("key")["value"].transform("size")
+    grouped = frame[sizes > 1].sort_values(["key", "count", "value"], ascending=[True, False, True])
+    groups = grouped.groupby("key", sort=False)["value"].agg(list)
+    # largest groups first, so the most affected levels are read first
+    total = grouped.groupby("key", sort=False)["count"].sum()
+    return [groups[key] for key in total.sort_values(ascending=False, kind="stable").index]
+
+
+def level_summary(levels: list[str], counts: np.ndarray, masked: bool, kind: str) -> dict[str, Any]:
+    """Frequency table (most frequent first, at most 1000), variants, many levels, near-zero variance."""
+    present_levels = np.flatnonzero(counts > 0)
+    order = present_levels[np.lexsort((np.asarray(levels, dtype=object)[present_levels].astype(str),
+                                       -counts[present_levels]))]
+    kept = order[:LEVELS_KEPT]
+    shown = [{"value": "[masked]" if masked else levels[i], "count": int(counts[i])} for i in kept.tolist()]
+    present = int(counts.sum())
+    out: dict[str, Any] = {
+        "distinct": int(present_levels.size),
+        "levels": shown,
+        "levels_other": int(counts[order[LEVELS_KEPT:]].sum()) if order.size > LEVELS_KEPT else 0,
+        "variants": [] if masked or kind == "text" else variants(levels, counts),
+        "many_levels": bool(present_levels.size > MANY_LEVELS),
+    }
+    out.update(near_zero_variance(counts[present_levels], present))
+    return out
+
+
+GRANULARITY_SECONDS = {"second": 1, "minute": 60, "hour": 3600, "day": 86400}
+
+
+def date_summary(seconds_sorted: np.ndarray, kind: str) -> dict[str, Any]:
+    """Range (ISO text), granularity, and gaps: periods of that granularity with no value."""
+    out: dict[str, Any] = {"min": None, "max": None, "distinct": 0, "granularity": None, "gaps": None}
+    if seconds_sorted.size == 0:
+        return out
+    stamps = seconds_sorted.astype(np.int64)
+    unique = np.unique(stamps)
+    as_dt = unique.astype("datetime64[s]")
+    unit = "D" if kind == "date" else "s"
+    out["min"] = str(as_dt[0].astype(f"datetime64[{unit}]"))
+    out["max"] = str(as_dt[-1].astype(f"datetime64[{unit}]"))
+    out["distinct"] = int(unique.size)
+    if np.all(unique % 86400 == 0):
+        days = as_dt.astype("datetime64[D]")
+        months = days.astype("datetime64[M]")
+        if np.all(days == months.astype("datetime64[D]")):
+            years = months.astype("datetime64[Y]")
+            if np.all(months == years.astype("datetime64[M]")):
+                granularity, periods = "year", years.astype(np.int64)
+            else:
+                granularity, periods = "month", months.astype(np.int64)
+        else:
+            day_numbers = days.astype(np.int64)
+            # 1970-01-01 was a Thursday; (day + 3) % 7 is 0 on Mondays
+            weekday = (day_numbers + 3) % 7
+            if unique.size > 1 and np.all(weekday == weekday[0]):
+                granularity, periods = "week", (day_numbers - weekday[0]) // 7
+            else:
+                granularity, periods = "day", day_numbers
+    else:
+        granularity = "second"
+        for name in ("hour", "minute"):
+            if np.all(unique % GRANULARITY_SECONDS[name] == 0):
+                granularity = name
+                break
+        periods = unique // GRANULARITY_SECONDS[granularity]
+    out["granularity"] = granularity
+    span = int(periods[-1] - periods[0]) + 1
+    steps = np.diff(periods)
+    gaps: dict[str, Any] = {"periods": span, "periods_without_data": span - int(periods.size),
+                            "largest": None}
+    if steps.size and steps.max() > 1:
+        at = int(np.argmax(steps))
+        gaps["largest"] = {
+            "after": str(as_dt[at].astype(f"datetime64[{unit}]")),
+            "before": str(as_dt[at + 1].astype(f"datetime64[{unit}]")),
+            "periods_without_data": int(steps[at] - 1),
+        }
+    out["gaps"] = gaps
+    return out
+
+
+def text_summary(strings: pa.ChunkedArray, missing: np.ndarray) -> dict[str, Any]:
+    """Distinct values and lengths, without listing any text."""
+    present = strings.filter(pa.array(~missing))
+    lengths = pc.utf8_length(present)
+    bounds = pc.min_max(lengths).as_py() if len(present) else {"min": None, "max": None}
+    distinct = int(pc.count_distinct(present).as_py()) if len(present) else 0
+    return {
+        "distinct": distinct,
+        "length": {"min": bounds["min"], "max": bounds["max"],
+                   "mean": float(pc.mean(lengths).as_py()) if len(present) else None},
+        "repeated": len(present) - distinct,
+    }
