@@ -105,6 +105,8 @@ def main(
 # pandas, pyarrow and scipy are imported inside the commands that compute. One module a line.
 COMMAND_MODULES = [
     "studylog.cli.study",
+    "studylog.cli.tables",
+    "studylog.cli.variables",
 ]
 
 
