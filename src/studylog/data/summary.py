@@ -19,6 +19,8 @@ What is exact and what is estimated (stated in every profile):
   (Apache DataSketches, k = 200) and ``quantile_error`` is its normalized rank error bound (about 1.33%
   of the ranks, at 99% confidence); ``quantile_error`` is 0 when exact. The sketch is always stored
   (base64 of ``kll_doubles_sketch.serialize()``), so drift can read the later drop's CDF at any edges;
+- ``value_counts``: every distinct numeric value with its count, when there are at most 1,000 (else
+  null); drift bins such columns exactly;
 - ``histogram``: 20 equal-width bins from min to max; counts exact while exact, else from the sketch;
 - distinct counts are exact up to ``LEVEL_LIMIT`` (100,000) distinct values, then a k-minimum-values
   estimate (Bar-Yossef et al. 2002; relative standard error about 1/sqrt(k - 2), k = 4096, ~1.6%);
@@ -49,6 +51,7 @@ if TYPE_CHECKING:
 EXACT_LIMIT = 100_000
 LEVEL_LIMIT = 100_000
 LEVELS_STORED = 1_000
+VALUE_COUNTS_STORED = 1_000
 KLL_K = 200
 KMV_K = 4096
 HISTOGRAM_BINS = 20
@@ -239,7 +242,9 @@ class NumericSummary:
         self.distinct = DistinctEstimate()
         import numpy as np
 
-        self.uniques: np.ndarray | None = np.empty(0)  # the exact distinct values while few; else None
+        # the exact distinct values and their counts while at most LEVEL_LIMIT; else None
+        self.uniques: np.ndarray | None = np.empty(0)
+        self.unique_counts = np.empty(0, dtype=np.int64)
 
     def update(self, x: np.ndarray) -> None:
         import numpy as np
@@ -259,15 +264,19 @@ class NumericSummary:
             self.buffered += len(x)
             if self.buffered > EXACT_LIMIT:
                 self.buffer = None
-        self._add_uniques(np.unique(x))
+        self._add_uniques(*np.unique(x, return_counts=True))
 
-    def _add_uniques(self, uniques: np.ndarray) -> None:
+    def _add_uniques(self, uniques: np.ndarray, counts: np.ndarray) -> None:
         import numpy as np
 
         if self.uniques is None:
             self.distinct.add_hashes(hash_values(uniques))
             return
-        self.uniques = np.union1d(self.uniques, uniques)
+        values, index = np.unique(np.concatenate([self.uniques, uniques]), return_inverse=True)
+        self.unique_counts = np.bincount(
+            index, weights=np.concatenate([self.unique_counts, counts]), minlength=len(values)
+        ).astype(np.int64)
+        self.uniques = values
         if len(self.uniques) > LEVEL_LIMIT:
             self.distinct.add_hashes(hash_values(self.uniques))
             self.uniques = None
@@ -294,7 +303,7 @@ class NumericSummary:
         else:
             self.buffer = None
         if other.uniques is not None:
-            self._add_uniques(other.uniques)
+            self._add_uniques(other.uniques, other.unique_counts)
         else:
             if self.uniques is not None:
                 self.distinct.add_hashes(hash_values(self.uniques))
@@ -307,7 +316,7 @@ class NumericSummary:
         if self.n == 0:
             return {key: None for key in (
                 "min", "max", "mean", "sd", "q1", "median", "q3", "deciles", "sketch", "histogram",
-                "outliers")} | {"quantile_error": 0.0, "quantiles_exact": True}
+                "outliers", "value_counts")} | {"quantile_error": 0.0, "quantiles_exact": True}
         probabilities = [0.25, 0.5, 0.75] + [i / 10 for i in range(1, 10)]
         exact = self.buffer is not None
         edges = np.linspace(self.minimum, self.maximum, HISTOGRAM_BINS + 1)
@@ -332,6 +341,11 @@ class NumericSummary:
             "sketch": base64.b64encode(self.sketch.serialize()).decode("ascii"),
             "histogram": {"edges": [_number(e) for e in edges], "counts": counts},
             "outliers": outliers,
+            # every distinct value with its count, when few: drift then bins them exactly
+            "value_counts": (
+                {"values": [_number(v) for v in self.uniques], "counts": self.unique_counts.tolist()}
+                if self.uniques is not None and len(self.uniques) <= VALUE_COUNTS_STORED else None
+            ),
         }
 
     def distinct_count(self) -> tuple[int, bool]:
