@@ -15,9 +15,9 @@ from studylog.data.digests import (
     RecordDigester,
     Records,
     compare_records,
-    digest_strings,
     digest_values,
 )
+from studylog.data.repeats import combine, text_digests
 
 
 def records(table: pa.Table, key: list[str], batch: int = 4) -> Records:
@@ -37,17 +37,20 @@ def seeded_drop(n: int, seed: int) -> pd.DataFrame:
     })
 
 
-def test_digest_is_siphash_of_joined_cells() -> None:
-    # definition (module docstring): SipHash-2-4 under the two fixed keys of the cells joined by U+001F;
-    # pandas' hash_array is the reference implementation of the hash
-    got = digest_strings(digests.join_cells([pa.array(["a", "b"]), pa.array(["x", None])]))
-    joined = np.array(["a\x1fx", "b\x1f\x1e"], dtype=object)
-    for i, key in enumerate(digests.HASH_KEYS):
-        assert got[:, i].tolist() == pd.util.hash_array(joined, hash_key=key, categorize=False).tolist()
-    # a single-column key is the digest of the cell alone (what foreign-key lookups rely on)
-    assert digest_values([pa.array(["a"])]).tolist() == digest_strings(pa.array(["a"])).tolist()
+def test_digests_are_the_checks_cell_digests_combined() -> None:
+    # definition (module docstring): a key digest is repeats.combine of the key cells' text_digests,
+    # and a single-column key's digest is that cell's digest (what foreign-key lookups rely on)
+    first, second = pa.array(["a", "b"]), pa.array(["x", "y"])
+    hi, lo = combine([text_digests(first), text_digests(second)])
+    assert digest_values([first, second]).tolist() == np.column_stack([hi, lo]).tolist()
+    hi, lo = text_digests(first)
+    assert digest_values([first]).tolist() == np.column_stack([hi, lo]).tolist()
     # a key with an empty cell gets the zero digest and takes no part in comparisons
-    assert digest_values([pa.array(["a", "b"]), pa.array(["x", None])])[1].tolist() == [0, 0]
+    assert digest_values([first, pa.array(["x", None])])[1].tolist() == [0, 0]
+    # the row digest ignores column order
+    frame = pa.table({"a": ["1", "2"], "b": ["3", "4"]})
+    swapped = frame.select(["b", "a"])
+    assert np.array_equal(records(frame, ["a"]).digests, records(swapped, ["a"]).digests)
 
 
 def test_planted_new_vanished_changed_with_composite_key() -> None:
@@ -69,12 +72,13 @@ def test_planted_new_vanished_changed_with_composite_key() -> None:
     assert result.unchanged == 200 - 2 - 4 and result.repeated_later == 0
     assert result.changed_columns == {"age": 3, "plan": 1}
     examples = result.examples(Records.from_chunks(before.to_chunks()), after)
-    assert examples["new_examples"] == [{"row": 199, "key": ["east", "M90000"]},
-                                        {"row": 200, "key": ["west", "M00001"]}]
-    assert examples["vanished_examples"] == [{"row": 6, "key": ["south", "M00002"]},
-                                             {"row": 121, "key": ["north", "M00060"]}]
+    # composite keys are shown as the check's findings show them, cells joined by "|"
+    assert examples["new_examples"] == [{"row": 199, "key": "east|M90000"},
+                                        {"row": 200, "key": "west|M00001"}]
+    assert examples["vanished_examples"] == [{"row": 6, "key": "south|M00002"},
+                                             {"row": 121, "key": "north|M00060"}]
     assert [e["key"] for e in examples["changed_examples"]] == [
-        ["north", "M00005"], ["south", "M00005"], ["north", "M00025"], ["north", "M00035"]]
+        "north|M00005", "south|M00005", "north|M00025", "north|M00035"]
     assert examples["changed_examples"][3]["columns"] == ["plan"]
     # a key repeated within the later drop is compared once, by its first row
     repeated = pd.concat([later, later.iloc[[0]]], ignore_index=True)

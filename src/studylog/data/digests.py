@@ -12,17 +12,18 @@ How the check uses it (keyed tables only; batches in file order, all columns str
     earlier = Records.from_chunks(rows)        # rows: (kind, seq, data) read back from the store
     result = compare_records(earlier, later)   # new, vanished, changed, examples, changed columns
 
-Method. A record's cells are joined with the unit separator U+001F (an empty cell becomes U+001E) and
-the joined text is hashed twice with SipHash-2-4 under two different 128-bit keys (pandas'
-vectorised ``hash_array``), giving a 128-bit digest. The key digest covers the key columns in the
-table's key order; the row digest covers all columns in name order (so a reordered file compares
-equal). A single-column key's digest is the digest of that cell alone, so a foreign key's value can
-be looked up among a parent table's key digests.
+Method. Each cell is digested by ``studylog.data.repeats.text_digests`` (the same vectorised 2 x 64-bit
+digest the key, unique and repeated-row checks use, so the check's per-column digests are reused when
+it hands them over: ``update(batch, column_digest=context.digest)``); a composite key and a whole row
+are combined from their cells' digests with ``repeats.combine``. The key digest covers the key columns in
+the table's key order; the row digest covers all columns in name order (so a reordered file compares
+equal). A single-column key's digest is the digest of that cell alone, so a foreign key's value is
+looked up among a parent table's key digests directly. The digest function is part of the stored
+format: changing it makes earlier drops' digests incomparable (bump FORMAT).
 
-Collision probability. For n distinct keys the chance that any two share a 128-bit digest is about
-n^2 / 2^129 (1.5e-25 for 10 million keys); the chance that a changed record keeps its row digest is
-about 2^-128 per record. Cells that themselves contain U+001F or U+001E could make two different
-records join to the same text; such control characters do not occur in ordinary data files.
+Collision probability. The digest is not cryptographic; it behaves as a 128-bit hash for ordinary data
+(repeats.py), so for n distinct keys the chance that any two share a digest is about n^2 / 2^129 (about
+1.5e-25 for 10 million keys) and the chance that a changed record keeps its row digest about 2^-128.
 
 Layout in the store (``digest_chunks``, one drop): ``meta`` (seq 0, JSON: format, key, columns, rows,
 chunk size), then per chunk of CHUNK_ROWS records in file order, seq 1, 2, ...: ``records`` (n x 4
@@ -40,6 +41,7 @@ from __future__ import annotations
 
 import json
 from dataclasses import dataclass, field
+from collections.abc import Callable
 from typing import TYPE_CHECKING, Any
 
 if TYPE_CHECKING:
@@ -48,13 +50,12 @@ if TYPE_CHECKING:
 
 FORMAT = 1
 CHUNK_ROWS = 1 << 20
-COLUMN_DIGEST_CELLS = 5_000_000
+# per-cell digests are kept while the drop has at most this many cells (2 bytes each: 64 MB)
+COLUMN_DIGEST_CELLS = 32_000_000
 EXAMPLES = 20
 SEPARATOR = "\x1f"
 EMPTY_MARK = "\x1e"
-# two 128-bit SipHash keys (16 characters each); fixed forever, or stored digests stop matching
-HASH_KEYS = ("studylog:digest1", "studylog:digest2")
-COLUMN_HASH_KEY = "studylog:columns"
+MASKED_KEY = "[masked]"
 
 
 def _as_strings(array: pa.Array | pa.ChunkedArray) -> pa.Array:
@@ -69,10 +70,9 @@ def _as_strings(array: pa.Array | pa.ChunkedArray) -> pa.Array:
 
 
 def join_cells(columns: list[pa.Array]) -> pa.Array:
-    """The cells of each row joined by U+001F, empty or null cells written as U+001E."""
-    import pyarrow.compute as pc
-
+    """The cells of each row joined by U+001F, empty or null cells written as U+001E (key texts)."""
     import pyarrow as pa
+    import pyarrow.compute as pc
 
     columns = [pc.if_else(pc.fill_null(pc.equal(c, ""), True), EMPTY_MARK, c).cast(pa.large_string())
                for c in map(_as_strings, columns)]
@@ -81,43 +81,36 @@ def join_cells(columns: list[pa.Array]) -> pa.Array:
     return pc.binary_join_element_wise(*columns, pa.scalar(SEPARATOR, pa.large_string()))
 
 
-def digest_strings(strings: pa.Array) -> np.ndarray:
-    """A 128-bit digest per string, as an (n, 2) uint64 array (SipHash-2-4 under two keys)."""
+def _stack(digest: tuple[np.ndarray, np.ndarray]) -> np.ndarray:
     import numpy as np
-    import pandas as pd
 
-    objects = strings.to_numpy(zero_copy_only=False)
-    out = np.empty((len(objects), 2), dtype=np.uint64)
-    for i, key in enumerate(HASH_KEYS):
-        out[:, i] = pd.util.hash_array(objects, hash_key=key, categorize=False)
-    return out
+    return np.column_stack([digest[0], digest[1]]).astype(np.uint64, copy=False)
 
 
-def digest_values(columns: list[pa.Array]) -> np.ndarray:
-    """Key digests of rows given their key columns (in key order); zero where a key cell is empty."""
+def cell_digest(column: pa.Array) -> tuple[np.ndarray, np.ndarray]:
+    """The two 64-bit lanes of each cell's digest (``repeats.text_digests``)."""
+    from studylog.data.repeats import text_digests
+
+    return text_digests(_as_strings(column))
+
+
+def digest_values(columns: list[pa.Array],
+                  digests: list[tuple[np.ndarray, np.ndarray]] | None = None) -> np.ndarray:
+    """Key digests (n, 2) of rows given their key columns in key order; zero where a key cell is empty."""
     import numpy as np
     import pyarrow.compute as pc
 
+    from studylog.data.repeats import combine
+
     columns = [_as_strings(c) for c in columns]
-    out = digest_strings(join_cells(columns))
+    parts = digests if digests is not None else [cell_digest(c) for c in columns]
+    out = _stack(combine(parts)).copy()
     empty = np.zeros(len(out), dtype=bool)
     for column in columns:
         empty |= pc.fill_null(pc.equal(pc.utf8_trim_whitespace(column), ""), True).to_numpy(
             zero_copy_only=False)
     out[empty] = 0
     return out
-
-
-def cell_digests(column: pa.Array) -> np.ndarray:
-    """A 16-bit digest of each cell (the unique values are hashed once, then gathered)."""
-    import numpy as np
-    import pandas as pd
-    import pyarrow.compute as pc
-
-    encoded = pc.dictionary_encode(join_cells([column]))
-    hashes = pd.util.hash_array(encoded.dictionary.to_numpy(zero_copy_only=False),
-                                hash_key=COLUMN_HASH_KEY, categorize=False)
-    return (hashes >> np.uint64(48)).astype(np.uint16)[encoded.indices.to_numpy(zero_copy_only=False)]
 
 
 @dataclass
@@ -210,11 +203,16 @@ def _decode_texts(data: bytes) -> pa.Array:
 
 
 class RecordDigester:
-    """Feeds on batches in file order; ``finish()`` gives the drop's :class:`Records`."""
+    """Feeds on batches in file order; ``finish()`` gives the drop's :class:`Records`.
 
-    def __init__(self, key_columns: list[str], all_columns: list[str]) -> None:
+    ``masked``: the key is a direct identifier or sensitive: its texts are not stored and examples show
+    "[masked]" (the digests are still kept: they reveal nothing readable).
+    """
+
+    def __init__(self, key_columns: list[str], all_columns: list[str], *, masked: bool = False) -> None:
         self.key = list(key_columns)
         self.columns = sorted(all_columns)
+        self.masked = masked
         self.parts: list[np.ndarray] = []
         self.cell_parts: list[np.ndarray] | None = []
         self.texts: list[pa.Array] = []
@@ -222,22 +220,33 @@ class RecordDigester:
         self.key_texts: list[bytes] = []
         self.rows = 0
 
-    def update(self, batch: pa.RecordBatch) -> None:
+    def update(self, batch: pa.RecordBatch,
+               column_digest: Callable[[str], tuple[np.ndarray, np.ndarray]] | None = None) -> None:
+        """Digest one batch. ``column_digest(name)`` may hand over the check's cached cell digests."""
         import numpy as np
 
+        from studylog.data.repeats import combine
+
         names = batch.schema.names
-        missing = [c for c in self.key if c not in names]
         n = batch.num_rows
-        if missing:
+        cache: dict[str, tuple[np.ndarray, np.ndarray]] = {}
+
+        def lanes(name: str) -> tuple[np.ndarray, np.ndarray]:
+            if name not in cache:
+                cache[name] = (column_digest(name) if column_digest is not None
+                               else cell_digest(batch.column(names.index(name))))
+            return cache[name]
+
+        if any(c not in names for c in self.key):
             key_digests = np.zeros((n, 2), dtype=np.uint64)
             key_text = join_cells([_null_strings(n)])
         else:
             key_cells = [batch.column(names.index(c)) for c in self.key]
-            key_digests = digest_values(key_cells)
+            key_digests = digest_values(key_cells, [lanes(c) for c in self.key])
             key_text = join_cells(key_cells)
         present = [c for c in self.columns if c in names]
-        row_cells = [batch.column(names.index(c)) for c in present]
-        row_digests = digest_strings(join_cells(row_cells)) if row_cells else np.zeros((n, 2), np.uint64)
+        row_digests = _stack(combine([lanes(c) for c in present])) if present else \
+            np.zeros((n, 2), np.uint64)
         self.parts.append(np.hstack([key_digests, row_digests]))
         self.rows += n
         if self.cell_parts is not None:
@@ -247,9 +256,10 @@ class RecordDigester:
                 cells = np.zeros((n, len(self.columns)), dtype=np.uint16)
                 for i, name in enumerate(self.columns):
                     if name in names:
-                        cells[:, i] = cell_digests(batch.column(names.index(name)))
+                        cells[:, i] = (lanes(name)[0] >> np.uint64(48)).astype(np.uint16)
                 self.cell_parts.append(cells)
-        self._add_texts(key_text)
+        if not self.masked:
+            self._add_texts(key_text)
 
     def _add_texts(self, texts: pa.Array) -> None:
         import pyarrow as pa
@@ -361,8 +371,11 @@ class RecordComparison:
                 "changed_examples": changed}
 
 
-def _key_value(parts: list[str | None]) -> Any:
-    return parts[0] if len(parts) == 1 else parts
+def _key_value(parts: list[str | None]) -> str | None:
+    """A key as the check's findings show it: the cell, or a composite key's cells joined by "|"."""
+    if not parts:
+        return MASKED_KEY
+    return parts[0] if len(parts) == 1 else "|".join("" if p is None else p for p in parts)
 
 
 def _common_columns(earlier: Records, later: Records) -> list[tuple[str, int, int]]:
@@ -422,7 +435,9 @@ def compare_records(earlier: Records, later: Records) -> RecordComparison:
 class OrphanCheck:
     """A foreign key's values looked up among the referenced table's key digests, batch by batch."""
 
-    def __init__(self, column: str, parent_keys: np.ndarray, key_columns: list[str]) -> None:
+    def __init__(self, column: str, parent_keys: np.ndarray, key_columns: list[str], *,
+                 masked: bool = False) -> None:
+        self.masked = masked
         self.column = column
         self.key_columns = key_columns
         first, _ = unique_keys(parent_keys)
@@ -451,9 +466,12 @@ class OrphanCheck:
         if room > 0 and len(positions):
             shown = positions[:room]
             self.rows.extend(int(p) + self.seen_rows + 1 for p in shown)
-            self.values.extend(values.take(pa.array(shown)).to_pylist())
+            shown_values = values.take(pa.array(shown)).to_pylist()
+            self.values.extend([MASKED_KEY] * len(shown) if self.masked else shown_values)
             if self.key_columns and all(c in names for c in self.key_columns):
                 cells = [batch.column(names.index(c)).take(pa.array(shown)).to_pylist()
                          for c in self.key_columns]
                 self.keys.extend(_key_value(list(parts)) for parts in zip(*cells))
+            else:
+                self.keys.extend([None] * len(shown))
         self.seen_rows += batch.num_rows
