@@ -126,7 +126,9 @@ def is_sqlite_file(path: Path) -> bool:
 def _open_raw(path: Path) -> sqlite3.Connection:
     """A connection that never creates the file; read-only when the file or its folder cannot be written."""
     last: Exception | None = None
-    for mode in ("rw", "ro"):
+    # immutable last: on a read-only or full disk SQLite cannot make the WAL's shared-memory file, and
+    # there nobody can be writing, so reading the file as it stands is exact
+    for mode in ("rw", "ro", "ro&immutable=1"):
         try:
             connection = sqlite3.connect(f"file:{path}?mode={mode}", uri=True, timeout=5)
             connection.execute("SELECT count(*) FROM sqlite_master").fetchone()

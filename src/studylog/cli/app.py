@@ -46,7 +46,7 @@ class StudylogGroup(TyperGroup):
             _fail(f"{exc.format_message()}{hint}", 2)
         except click.exceptions.ClickException as exc:
             _fail(exc.format_message(), exc.exit_code)
-        except click.exceptions.Abort:
+        except typer.Abort:  # typer's own class: typer._click.exceptions has no Abort
             _fail("aborted", 1)
         except (KeyboardInterrupt, EOFError):
             _fail("interrupted; nothing was written", 130)

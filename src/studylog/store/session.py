@@ -158,13 +158,22 @@ def translate(exc: BaseException) -> StoreError | None:
         return StoreReadOnly("the store is read-only here; check the file's and folder's permissions")
     if "disk is full" in message or "disk full" in message or "no space" in message:
         return StoreReadOnly("the disk is full; nothing was written; free some space and try again")
+    if "disk i/o error" in message:
+        # what SQLite says when its shared-memory or log file cannot grow on a full or failing disk
+        return StoreReadOnly(
+            "the store could not be read or written (disk I/O error): the disk may be full or failing; "
+            "nothing was written; free some space, then run 'studylog doctor'"
+        )
     if "not a database" in message or "malformed" in message or "corrupt" in message:
         return StoreCorrupt(
             "the store is damaged or is not a studylog store; run 'studylog doctor' "
             "or restore a backup"
         )
     if "unable to open" in message:
-        return StoreReadOnly("the store cannot be opened; check the path and its permissions")
+        return StoreReadOnly(
+            "the store cannot be opened: its folder may be read-only or full, or not yours; "
+            "check the path, its permissions and the free space"
+        )
     return None
 
 
