@@ -16,6 +16,9 @@ from studylog import study as study_records
 
 PROVIDERS: list[str] = [
     "studylog.status:study_sections",
+    "studylog.questions:status_sections",
+    "studylog.threats:status_sections",
+    "studylog.journal:status_sections",
 ]
 
 

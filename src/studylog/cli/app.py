@@ -108,6 +108,9 @@ COMMAND_MODULES = [
     "studylog.cli.tables",
     "studylog.cli.variables",
     "studylog.cli.care",
+    "studylog.cli.journal",
+    "studylog.cli.questions",
+    "studylog.cli.threats",
 ]
 
 
