@@ -1,0 +1,222 @@
+"""Fixed-size digests of cells and rows, and a compact set of the digests seen so far.
+
+The ``unique``, ``key`` and ``repeated-row`` checks must know whether a row repeats any earlier row of a
+file far larger than memory. They keep one 16-byte digest per distinct value (two 64-bit lanes), never
+the values: memory is bounded by rows x 16 bytes, whatever the width of the data.
+
+The digest of a text is computed with numpy over Arrow's buffers, a whole column at a time: the UTF-8
+bytes are read as little-endian 64-bit words (zero-padded), each word is folded into two independently
+seeded lanes with a multiply-xorshift step, and the byte length is folded in last, followed by the
+SplitMix64 finaliser (Steele, Lea & Flood 2014) for avalanche. A text's digest depends only on its bytes,
+never on the batch it arrived in, so digests of the same file read in batches of any size are equal.
+This is a hash for telling values apart, not a cryptographic one: two different texts share a digest with
+probability about 2^-128 per pair, which for 10^9 rows is far below one in a million.
+
+A missing cell (null) has its own digest, different from that of every text.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from typing import TYPE_CHECKING, Any
+
+if TYPE_CHECKING:
+    import numpy as np
+
+# bytes of one window: long texts are digested 64 bytes at a time so that padding stays bounded
+WINDOW = 64
+MERGE_LIMIT = 1 << 22
+_SEED_HI = 0x9E3779B97F4A7C15
+_SEED_LO = 0xD6E8FEB86659FD93
+_MUL_HI = 0xFF51AFD7ED558CCD
+_MUL_LO = 0xC4CEB9FE1A85EC53
+_NULL_HI = 0x2545F4914F6CDD1D
+_NULL_LO = 0x5851F42D4C957F2D
+_ROW_MUL = 0x100000001B3
+
+
+def _finalise(h: np.ndarray) -> np.ndarray:
+    import numpy as np
+
+    h = h ^ (h >> np.uint64(30))
+    h = h * np.uint64(0xBF58476D1CE4E5B9)
+    h = h ^ (h >> np.uint64(27))
+    h = h * np.uint64(0x94D049BB133111EB)
+    return h ^ (h >> np.uint64(31))
+
+
+def text_digests(strings: Any) -> tuple[np.ndarray, np.ndarray]:
+    """Two 64-bit digest lanes for each text of an Arrow string array (null has its own digest)."""
+    import numpy as np
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    if isinstance(strings, pa.ChunkedArray):
+        strings = strings.combine_chunks()
+    n = len(strings)
+    binary = strings.cast(pa.large_binary()) if pa.types.is_large_string(strings.type) else \
+        strings.cast(pa.binary())
+    lengths = pc.fill_null(pc.binary_length(binary), 0).to_numpy(zero_copy_only=False).astype(np.int64)
+    hi = np.full(n, _SEED_HI, dtype=np.uint64)
+    lo = np.full(n, _SEED_LO, dtype=np.uint64)
+    longest = int(lengths.max()) if n else 0
+    with np.errstate(over="ignore"):
+        start = 0
+        while True:
+            if start == 0:
+                rows = None
+                part = binary if longest <= WINDOW else pc.binary_slice(binary, 0, WINDOW)
+                part_lengths = np.minimum(lengths, WINDOW)
+                hi, lo = _fold_window(part, part_lengths, hi, lo)
+            else:
+                rows = np.flatnonzero(lengths > start)
+                part = pc.binary_slice(binary.take(pa.array(rows)), start, start + WINDOW)
+                part_lengths = np.minimum(lengths[rows] - start, WINDOW)
+                hi[rows], lo[rows] = _fold_window(part, part_lengths, hi[rows], lo[rows])
+            start += WINDOW
+            if start >= longest:
+                break
+        hi = _finalise(hi ^ (lengths.astype(np.uint64) * np.uint64(_MUL_LO)))
+        lo = _finalise(lo ^ (lengths.astype(np.uint64) * np.uint64(_MUL_HI)))
+    if strings.null_count:
+        nulls = pc.is_null(strings).to_numpy(zero_copy_only=False)
+        hi[nulls] = _NULL_HI
+        lo[nulls] = _NULL_LO
+    return hi, lo
+
+
+def _fold_window(
+    part: Any, lengths: np.ndarray, sub_hi: np.ndarray, sub_lo: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Fold up to 64 bytes of each text into the lanes (padding words beyond a text are skipped)."""
+    import numpy as np
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    width = int(-(-int(lengths.max()) // 8) * 8) if len(lengths) else 0
+    if width == 0:
+        return sub_hi, sub_lo
+    pad_lengths = pa.array(width - lengths, pa.int64())
+    zero = pa.scalar(b"\0", part.type)
+    padding = pc.binary_repeat(zero, pad_lengths)
+    padded = pc.binary_join_element_wise(pc.fill_null(part, b""), padding, pa.scalar(b"", part.type))
+    buffers = padded.buffers()
+    offset_type = np.int64 if pa.types.is_large_binary(padded.type) else np.int32
+    offsets = np.frombuffer(buffers[1], dtype=offset_type, count=len(padded) + 1, offset=padded.offset *
+                            np.dtype(offset_type).itemsize)
+    data = np.frombuffer(buffers[2], dtype=np.uint8)[offsets[0]: offsets[0] + len(padded) * width]
+    words = data.view("<u8").reshape(len(padded), width // 8)
+    mul_hi = np.uint64(_MUL_HI)
+    mul_lo = np.uint64(_MUL_LO)
+    shift = np.uint64(29)
+    for j in range(width // 8):
+        word = words[:, j]
+        inside = lengths > 8 * j
+        next_hi = (sub_hi ^ word) * mul_hi
+        next_lo = (sub_lo ^ word) * mul_lo
+        next_hi ^= next_hi >> shift
+        next_lo ^= next_lo >> shift
+        if inside.all():
+            sub_hi, sub_lo = next_hi, next_lo
+        else:
+            sub_hi = np.where(inside, next_hi, sub_hi)
+            sub_lo = np.where(inside, next_lo, sub_lo)
+    return sub_hi, sub_lo
+
+
+def combine(parts: Sequence[tuple[np.ndarray, np.ndarray]]) -> tuple[np.ndarray, np.ndarray]:
+    """One digest of several cells in order (a composite key, or a whole row)."""
+    import numpy as np
+
+    if len(parts) == 1:
+        return parts[0]
+    hi = np.full(len(parts[0][0]), _SEED_LO, dtype=np.uint64)
+    lo = np.full(len(parts[0][0]), _SEED_HI, dtype=np.uint64)
+    mul = np.uint64(_ROW_MUL)
+    with np.errstate(over="ignore"):
+        for part_hi, part_lo in parts:
+            hi = _finalise(hi * mul + part_hi)
+            lo = _finalise(lo * mul + part_lo)
+    return hi, lo
+
+
+def packed(digest: tuple[np.ndarray, np.ndarray]) -> bytes:
+    """The digests as 16 bytes per row (hi then lo, big-endian), e.g. to store them."""
+    import numpy as np
+
+    hi, lo = digest
+    out = np.empty((len(hi), 2), dtype=">u8")
+    out[:, 0] = hi
+    out[:, 1] = lo
+    return out.tobytes()
+
+
+class SeenDigests:
+    """The set of 16-byte digests seen so far, as a few sorted numpy arrays (no Python object per row).
+
+    ``observe`` marks which digests of a batch were seen before (in an earlier batch, or earlier in the
+    same batch) and adds the new ones. New digests form a sorted run; runs of similar size are merged
+    (like a binary counter) up to ``MERGE_LIMIT`` entries, so a lookup searches O(log n) runs and the
+    extra memory of a merge stays bounded.
+    """
+
+    def __init__(self) -> None:
+        self.runs: list[tuple[np.ndarray, np.ndarray]] = []
+
+    def __len__(self) -> int:
+        return sum(len(run[0]) for run in self.runs)
+
+    @property
+    def nbytes(self) -> int:
+        return sum(run[0].nbytes + run[1].nbytes for run in self.runs)
+
+    def observe(self, hi: np.ndarray, lo: np.ndarray) -> np.ndarray:
+        """A boolean mask: True where the digest repeats one seen before (the first occurrence is False)."""
+        import numpy as np
+
+        n = len(hi)
+        repeat = np.zeros(n, dtype=bool)
+        if n == 0:
+            return repeat
+        order = np.lexsort((lo, hi))  # stable: equal digests keep their row order
+        sorted_hi, sorted_lo = hi[order], lo[order]
+        same = (sorted_hi[1:] == sorted_hi[:-1]) & (sorted_lo[1:] == sorted_lo[:-1])
+        repeat[order[1:][same]] = True
+        for run_hi, run_lo in self.runs:
+            repeat |= _member(run_hi, run_lo, hi, lo)
+        first = np.concatenate([[True], ~same])
+        keep = first & ~repeat[order]
+        self._add(sorted_hi[keep], sorted_lo[keep])
+        return repeat
+
+    def _add(self, hi: np.ndarray, lo: np.ndarray) -> None:
+        import numpy as np
+
+        if len(hi) == 0:
+            return
+        self.runs.append((hi, lo))
+        while len(self.runs) > 1:
+            (a_hi, a_lo), (b_hi, b_lo) = self.runs[-2], self.runs[-1]
+            if len(a_hi) > 2 * len(b_hi) or len(a_hi) + len(b_hi) > MERGE_LIMIT:
+                break
+            merged_hi = np.concatenate([a_hi, b_hi])
+            merged_lo = np.concatenate([a_lo, b_lo])
+            order = np.argsort(merged_hi, kind="stable")
+            self.runs[-2:] = [(merged_hi[order], merged_lo[order])]
+
+
+def _member(run_hi: np.ndarray, run_lo: np.ndarray, hi: np.ndarray, lo: np.ndarray) -> np.ndarray:
+    """Which (hi, lo) pairs are in a run sorted by hi (equal-hi neighbours are scanned, rarely more than one)."""
+    import numpy as np
+
+    size = len(run_hi)
+    position = np.searchsorted(run_hi, hi)
+    found = np.zeros(len(hi), dtype=bool)
+    clipped = np.minimum(position, size - 1)
+    active = (position < size) & (run_hi[clipped] == hi)
+    while active.any():
+        found |= active & (run_lo[clipped] == lo)
+        position = position + 1
+        clipped = np.minimum(position, size - 1)
+        active = active & ~found & (position < size) & (run_hi[clipped] == hi)
+    return found
