@@ -107,6 +107,7 @@ COMMAND_MODULES = [
     "studylog.cli.study",
     "studylog.cli.tables",
     "studylog.cli.variables",
+    "studylog.cli.profile",
     "studylog.cli.care",
     "studylog.cli.journal",
     "studylog.cli.questions",

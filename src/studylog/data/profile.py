@@ -172,7 +172,8 @@ def _target_section(column: _Column, strings: pa.ChunkedArray) -> tuple[dict[str
 
 
 def _leakage(columns: Sequence[_Column], target: _Column, target_levels: pairs.LevelColumn | None,
-             table: pa.Table, correlation_pairs: Sequence[dict[str, Any]]) -> list[dict[str, Any]]:
+             correlation_pairs: Sequence[dict[str, Any]], availability: Mapping[str, str]
+             ) -> list[dict[str, Any]]:
     """Inputs nearly determined by the target (association >= 0.9), and inputs available after the
     index time: eta^2 (numeric input, class target), bias-corrected Cramer's V (categorical input,
     class target), r^2 (numeric input, numeric target)."""
@@ -184,7 +185,7 @@ def _leakage(columns: Sequence[_Column], target: _Column, target_levels: pairs.L
     for column in columns:
         if column is target or column.spec.role in ("identifier", "excluded", "target"):
             continue
-        if getattr(column.spec, "availability", None) == "after":
+        if availability.get(column.name, getattr(column.spec, "availability", None)) == "after":
             found.append({"variable": column.name, "reason": "available after the index time",
                           "measure": None, "value": None})
         measure, value = None, None
@@ -215,6 +216,7 @@ def profile_table(
     strong: float = pairs.DEFAULT_STRONG,
     inferred_missing: Mapping[str, Sequence[str]] | None = None,
     weight: str | None = None,
+    availability: Mapping[str, str] | None = None,
 ) -> dict[str, Any]:
     """The whole profile as the contract's JSON document (numbers may still be numpy/NaN: see clean)."""
     names = list(table.column_names)
@@ -251,7 +253,8 @@ def profile_table(
     if target is not None:
         section, target_levels = _target_section(by_name[target], table.column(target))
         document["target"] = section
-        document["leakage"] = _leakage(columns, by_name[target], target_levels, table, correlation["pairs"])
+        document["leakage"] = _leakage(columns, by_name[target], target_levels, correlation["pairs"],
+                                       availability or {})
     if by is not None:
         grouping = _as_levels(by_name[by], table.column(by))
         if grouping.levels > MAX_GROUPS:

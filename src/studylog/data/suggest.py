@@ -20,18 +20,18 @@ IMBALANCE_REVIEW_RATIO = 4.0
 # a few negatives among otherwise non-negative values look like a sign or entry error; our threshold
 NEGATIVE_SHARE_LIMIT = 0.01
 
-# the decision kinds of `studylog log` that each topic leads to
+# the decision kind of `studylog log` (journal.KINDS) that each topic leads to
 KIND = {
     "missing-data": "missing",
     "sentinel-code": "missing",
-    "case-variant": "recoding",
+    "case-variant": "merge-levels",
     "impossible-negative": "cleaning",
     "outlier": "outliers",
-    "near-zero-variance": "feature-selection",
-    "class-imbalance": "imbalance",
-    "redundant-pair": "feature-selection",
-    "many-levels": "recoding",
-    "possible-leakage": "feature-selection",
+    "near-zero-variance": "select-features",
+    "class-imbalance": "sampling",
+    "redundant-pair": "select-features",
+    "many-levels": "merge-levels",
+    "possible-leakage": "exclude-variables",
 }
 
 

@@ -1,0 +1,154 @@
+"""``studylog profile``: read a file, find what the dictionary says about it, and profile it.
+
+Types and missing codes come from the study's dictionary when a study exists and the file's table is in
+it (``--table``, else the table named like the file, else the study's only table when most of the file's
+columns are its variables); the other columns get the types and missing codes that inference proposes.
+Profiling needs no study at all.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Any
+
+from studylog.data.spec import TableSpec, VariableSpec
+from studylog.errors import NoStudyFound
+from studylog.store.session import StoreLocation
+
+# the share of a file's columns that must be variables of the study's only table to use it unasked
+MATCH_SHARE = 0.5
+
+
+@dataclass
+class Dictionary:
+    """What the study knows about the file: its table's spec, availability, the study's target."""
+
+    spec: TableSpec | None = None
+    availability: dict[str, str] = field(default_factory=dict)
+    target: str | None = None
+    weight: str | None = None
+
+
+def _matching_table(session: Any, columns: Sequence[str], path: Path, explicit: str | None) -> str | None:
+    from studylog import dictionary
+
+    if explicit is not None:
+        return dictionary.resolve_table(session, explicit).name
+    tables = dictionary.tables(session)
+    for table in tables:
+        if table.name == path.stem:
+            return table.name
+    if len(tables) == 1:
+        names = set()
+        for variable in tables[0].variables:
+            names.add(variable.name)
+            names.update(variable.aliases or [])
+        if columns and sum(c in names for c in columns) >= MATCH_SHARE * len(columns):
+            return tables[0].name
+    return None
+
+
+def study_dictionary(location: StoreLocation | None, columns: Sequence[str], path: Path,
+                     table: str | None) -> Dictionary:
+    """The dictionary of the file's table, or an empty one when there is no study or no such table."""
+    if location is None:
+        return Dictionary()
+    from studylog import dictionary, study
+    from studylog.store.session import transaction
+
+    try:
+        with transaction(location, write=False) as session:
+            found = Dictionary(target=study.get(session).target)
+            name = _matching_table(session, columns, path, table)
+            if name is None:
+                return found
+            found.spec = dictionary.table_spec(session, name)
+            for variable in dictionary.variables(session, table=name):
+                if variable.availability:
+                    found.availability[variable.name] = variable.availability
+            return found
+    except NoStudyFound:
+        if table is not None:
+            raise
+        return Dictionary()
+
+
+def _specs_for(columns: Sequence[str], spec: TableSpec | None) -> dict[str, VariableSpec]:
+    """Each column's variable: by name, else by one of its aliases (the column is checked as it)."""
+    if spec is None:
+        return {}
+    found: dict[str, VariableSpec] = {}
+    for variable in spec.variables:
+        for name in (variable.name, *variable.aliases):
+            if name in columns and name not in found:
+                found[name] = variable
+    return found
+
+
+def inferred_specs(data: Any, names: Sequence[str]) -> dict[str, tuple[VariableSpec, list[str]]]:
+    """For columns the dictionary does not know: the variable inference proposes, and its likely
+    missing codes (kept apart: they are counted as missing and suggested for review, not declared)."""
+    from studylog.data.infer import infer_column
+    from studylog.data.spec import Code
+
+    found: dict[str, tuple[VariableSpec, list[str]]] = {}
+    for name in names:
+        proposal = infer_column(name, data.column(name), data.num_rows)
+        levels = tuple(Code(str(level["code"]), level.get("label"), level.get("order"))
+                       for level in proposal.levels)
+        variable = VariableSpec(
+            name=name, type=proposal.type, levels=levels, true_values=tuple(proposal.true_values),
+            false_values=tuple(proposal.false_values), date_format=proposal.date_format,
+            role=proposal.role or "input", sensitivity=proposal.sensitivity or "none",
+        )
+        found[name] = (variable, [str(code["code"]) for code in proposal.missing_codes])
+    return found
+
+
+def profile_file(
+    path: str | Path,
+    *,
+    target: str | None = None,
+    by: str | None = None,
+    strong: float = 0.9,
+    table: str | None = None,
+    encoding: str | None = None,
+    sheet: str | None = None,
+    location: StoreLocation | None = None,
+) -> dict[str, Any]:
+    """The profile document of one file (the ``profile --json`` contract plus ``file`` and ``source``)."""
+    from studylog.data import profile
+    from studylog.data.read import read_table
+
+    path = Path(path)
+    data = read_table(path, encoding=encoding, sheet=sheet)
+    columns = list(data.column_names)
+    known = study_dictionary(location, columns, path, table)
+    specs = _specs_for(columns, known.spec)
+    availability = {column: known.availability[spec.name] for column, spec in specs.items()
+                    if spec.name in known.availability}
+    proposed = inferred_specs(data, [c for c in columns if c not in specs])
+    inferred_missing = {name: codes for name, (_spec, codes) in proposed.items()}
+    for name, (variable_spec, _codes) in proposed.items():
+        specs[name] = variable_spec
+    specs = {name: replace(spec, name=name) for name, spec in specs.items()}
+    if target is None:
+        roles = [name for name, spec in specs.items() if spec.role == "target" and name in columns]
+        if roles:
+            target = roles[0]
+        elif known.target in columns:
+            target = known.target
+    weights = [name for name, spec in specs.items() if spec.role == "weight"]
+    document = profile.profile_table(
+        data, specs, target=target, by=by, strong=strong, inferred_missing=inferred_missing,
+        weight=weights[0] if weights else None, availability=availability,
+    )
+    document["file"] = str(path)
+    document["source"] = {
+        "table": known.spec.name if known.spec else None,
+        "from_dictionary": [c for c in columns if c not in proposed],
+        "inferred": list(proposed),
+    }
+    return document
