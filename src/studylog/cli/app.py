@@ -108,10 +108,12 @@ COMMAND_MODULES = [
     "studylog.cli.tables",
     "studylog.cli.variables",
     "studylog.cli.profile",
+    "studylog.cli.draft",
     "studylog.cli.care",
     "studylog.cli.journal",
     "studylog.cli.questions",
     "studylog.cli.threats",
+    "studylog.cli.report",
 ]
 
 

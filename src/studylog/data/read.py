@@ -74,6 +74,10 @@ class Source:
     batch_rows: int = 65_536
     progress: Progress | None = field(default=None, repr=False)
 
+    def table(self) -> pa.Table:
+        """The whole file as one table of string columns."""
+        return _whole(self)
+
     def batches(self) -> Iterator[pa.RecordBatch]:
         from studylog.data import read_columnar
 
@@ -83,6 +87,16 @@ class Source:
             yield from read_columnar.parquet_batches(self)
         else:
             yield from read_columnar.excel_batches(self)
+
+
+def _whole(source: Source) -> pa.Table:
+    import pyarrow as pa
+
+    # positional names while concatenating: the file's own names may be anything (quotes, dots, ...)
+    names = [f"c{i}" for i in range(len(source.columns))]
+    schema = pa.schema([pa.field(name, pa.string()) for name in names])
+    batches = [batch.rename_columns(names) for batch in source.batches()]
+    return pa.Table.from_batches(batches, schema=schema).rename_columns(source.columns)
 
 
 def open_source(
@@ -134,12 +148,8 @@ def read_table(
     progress: Progress | None = None,
 ) -> pa.Table:
     """The whole file as one table of string columns."""
-    import pyarrow as pa
-
     source = open_source(path, encoding=encoding, sheet=sheet, batch_rows=batch_rows, progress=progress)
-    schema = pa.schema([pa.field(f"c{i}", pa.string()) for i in range(len(source.columns))])
-    batches = [batch.rename_columns(schema.names) for batch in source.batches()]
-    return pa.Table.from_batches(batches, schema=schema).rename_columns(source.columns)
+    return source.table()
 
 
 def file_facts(path: str | os.PathLike[str]) -> tuple[str, int]:
