@@ -26,7 +26,8 @@ Collision probability. The digest is not cryptographic; it behaves as a 128-bit 
 1.5e-25 for 10 million keys) and the chance that a changed record keeps its row digest about 2^-128.
 
 Layout in the store (``digest_chunks``, one drop): ``meta`` (seq 0, JSON: format, key, columns, rows,
-chunk size), then per chunk of CHUNK_ROWS records in file order, seq 1, 2, ...: ``records`` (n x 4
+chunk size), then per chunk c of CHUNK_ROWS records in file order (seq 3c + 1, 3c + 2, 3c + 3):
+``records`` (n x 4
 little-endian uint64: key digest, row digest; 32 bytes a record; record i of the drop is data row i + 1),
 ``keys`` (the key cells as text, joined by U+001F, an Arrow IPC stream compressed with zstd; used only
 for example keys of vanished records), and, while the drop has at most COLUMN_DIGEST_CELLS cells,
@@ -151,13 +152,14 @@ class Records:
                 "chunk_rows": CHUNK_ROWS, "cell_digests": self.cells is not None,
                 "method": "SipHash-2-4 x 2 of cells joined by U+001F"}
         chunks = [("meta", 0, json.dumps(meta).encode())]
-        for seq, start in enumerate(range(0, self.rows, CHUNK_ROWS), start=1):
+        # ``digest_chunks`` has one seq per (drop, seq): chunk c of each kind takes 3c + 1, + 2, + 3
+        for number, start in enumerate(range(0, self.rows, CHUNK_ROWS)):
             stop = start + CHUNK_ROWS
-            chunks.append(("records", seq, self.digests[start:stop].astype("<u8").tobytes()))
-            if seq - 1 < len(self.key_texts):
-                chunks.append(("keys", seq, self.key_texts[seq - 1]))
+            chunks.append(("records", 3 * number + 1, self.digests[start:stop].astype("<u8").tobytes()))
+            if number < len(self.key_texts):
+                chunks.append(("keys", 3 * number + 2, self.key_texts[number]))
             if self.cells is not None:
-                chunks.append(("columns", seq, self.cells[start:stop].astype("<u2").tobytes()))
+                chunks.append(("columns", 3 * number + 3, self.cells[start:stop].astype("<u2").tobytes()))
         return chunks
 
     @classmethod
