@@ -114,6 +114,8 @@ COMMAND_MODULES = [
     "studylog.cli.questions",
     "studylog.cli.threats",
     "studylog.cli.report",
+    "studylog.cli.rules",
+    "studylog.cli.check",
 ]
 
 

@@ -1,0 +1,635 @@
+"""The data every document template receives, read from the store (read-only) with privacy applied.
+
+The context is plain JSON-able dicts and lists, the same for Markdown and HTML and for a user's own
+``--template``; DEVELOPERS.md ("Documents") lists its keys. Privacy is applied HERE, before any template
+sees the data, so that no template (ours or a user's) can show what must not leave the study:
+
+- counts from 1 to ``min_cell - 1`` arrive as the text "<min_cell" (:func:`studylog.safety.small_count`);
+- the observed extremes (min, max, end labels of a histogram) of quasi-identifiers are left out;
+- no value of a direct-identifier, sensitive, free-text or identifier variable is included (no levels
+  seen in the data, no summary values, no chart, no finding message), only counts;
+- finding rows, keys and example values are never included.
+
+Text written by people (descriptions, reasons) is passed as it was written; the templates render it
+through the ``md`` filter, which for HTML is markdown-it-py with raw HTML disabled.
+"""
+
+from __future__ import annotations
+
+from collections import defaultdict
+from typing import Any
+
+from sqlalchemy import select
+from sqlalchemy.orm import Session
+
+from studylog import charts
+from studylog import study as study_records
+from studylog.data.spec import MASKED_SENSITIVITY, NUMERIC_TYPES, ROLES
+from studylog.safety import small_count
+from studylog.store.models import (
+    Change,
+    DataTable,
+    Decision,
+    DictionaryVersion,
+    Drop,
+    Entry,
+    Finding,
+    Link,
+    Profile,
+    Question,
+    Rule,
+    Threat,
+    Variable,
+)
+
+ROLE_TITLES = {
+    "target": "Target", "input": "Inputs", "identifier": "Identifiers", "time": "Time",
+    "weight": "Weights", "stratum": "Strata", "cluster": "Clusters", "group": "Groups",
+    "excluded": "Excluded from the analysis",
+}
+ROLE_ORDER = ("target", "input", "identifier", "time", "weight", "stratum", "cluster", "group", "excluded")
+assert set(ROLE_ORDER) == set(ROLES)
+
+# The journal's decision kinds (studylog.journal.KINDS) -> the methods subsection that reports them.
+# One table, in the order of an analysis; a kind missing here is reported under "other".
+METHOD_SECTIONS: list[tuple[str, str, tuple[str, ...]]] = [
+    ("cleaning", "Cleaning and recoding",
+     ("cleaning", "recoding", "duplicates", "merge-levels", "exclude-cases", "exclude-variables")),
+    ("missing", "Missing data", ("missing",)),
+    ("outliers", "Outliers", ("outliers",)),
+    ("transform", "Transformations and scaling", ("transform",)),
+    ("reduction", "Dimensionality reduction and feature selection",
+     ("select-features", "extract-features")),
+    ("design", "Sampling, split and validation design", ("sampling", "split")),
+    ("model", "Modelling", ("model",)),
+    ("evaluation", "Evaluation", ("metric",)),
+    ("other", "Other decisions", ("other",)),
+]
+IN_FORCE = ("adopted", "implemented")
+ASSUMPTION_TEXT = {
+    "MCAR": "missing completely at random (MCAR)",
+    "MAR": "missing at random given the observed data (MAR)",
+    "MNAR": "missing not at random (MNAR)",
+}
+THREAT_KINDS = [
+    ("internal", "Internal validity"),
+    ("external", "External validity"),
+    ("construct", "Construct validity"),
+    ("statistical", "Statistical conclusion validity"),
+]
+NEXT_KINDS = ("next", "next-step")
+MAX_LEVELS_SHOWN = 12
+MASKED_TYPES = ("text", "identifier")
+
+# The statistical definitions studylog's profiles and checks use (DESIGN.md, "Statistical definitions").
+DEFINITIONS = [
+    "Quartiles and deciles by linear interpolation (Hyndman and Fan 1996, type 7); for drops too large "
+    "to hold in memory, from a KLL quantile sketch (Apache DataSketches, k = 200) whose normalised rank "
+    "error bound is stated with the profile.",
+    "Tukey's fences at 1.5 and 3 times the spread between Tukey's hinges, as box plots draw them.",
+    "Standard deviation with n − 1 in the denominator; skewness as the adjusted Fisher–Pearson "
+    "coefficient G1.",
+    "Modified z-score M = 0.6745 (x − median) / MAD, flagged when |M| > 3.5 (Iglewicz and Hoaglin "
+    "1993); not computed when the MAD is 0.",
+    "Pearson and Spearman correlations on each pair's complete cases (at least 10); Kendall's τ-b for "
+    "pairs of ordinal variables.",
+    "Cramér's V without continuity correction and its bias-corrected form (Bergsma 2013).",
+    "Population Stability Index over bins from the earlier drop's deciles, missing values as their own "
+    "bin; bands stable < 0.1 ≤ moderate ≤ 0.25 < shifted (common practice in credit scoring).",
+    "A value listed among a variable's missing codes counts as missing, never as a type, level or range "
+    "failure. Profiles are unweighted.",
+]
+
+
+class _Links:
+    """Every link of the journal, read once: source -> variable ids and decision ids."""
+
+    def __init__(self, session: Session) -> None:
+        self.variables: dict[tuple[str, int], list[int]] = defaultdict(list)
+        self.decisions: dict[tuple[str, int], list[int]] = defaultdict(list)
+        for link in session.scalars(select(Link).order_by(Link.id)):
+            key = (link.source_kind, link.source_id)
+            if link.variable_id is not None:
+                self.variables[key].append(link.variable_id)
+            if link.decision_id is not None:
+                self.decisions[key].append(link.decision_id)
+
+
+class Study:
+    """The store read once for one document: tables, variables, drops, decisions, links."""
+
+    def __init__(self, session: Session, min_cell: int) -> None:
+        self.session = session
+        self.min_cell = min_cell
+        self.study = study_records.get(session)
+        self.tables = list(session.scalars(select(DataTable).order_by(DataTable.id)))
+        self.variables = list(
+            session.scalars(select(Variable).order_by(Variable.table_id, Variable.position, Variable.id))
+        )
+        self.variable_by_id = {v.id: v for v in self.variables}
+        self.table_by_id = {t.id: t for t in self.tables}
+        self.drops = list(session.scalars(select(Drop).order_by(Drop.checked_at, Drop.id)))
+        self.decisions = list(session.scalars(select(Decision).order_by(Decision.created_at, Decision.id)))
+        self.decision_by_id = {d.id: d for d in self.decisions}
+        self.links = _Links(session)
+        self.several_tables = len(self.tables) > 1
+
+    # ---- small helpers ----
+
+    def count(self, value: int | None) -> int | str | None:
+        return small_count(value, self.min_cell)
+
+    def share(self, part: int | None, whole: int | None) -> str | None:
+        """A share as text; a part below the threshold is not turned into an exact share."""
+        if part is None or not whole:
+            return None
+        if 0 < part < self.min_cell:
+            return f"<{self.min_cell} of {self.count(whole)}"
+        return f"{100 * part / whole:.1f}%"
+
+    def variable_name(self, variable: Variable) -> str:
+        table = self.table_by_id[variable.table_id]
+        return f"{table.name}.{variable.name}" if self.several_tables else variable.name
+
+    def variable_names(self, kind: str, source_id: int) -> list[str]:
+        return [
+            self.variable_name(self.variable_by_id[i])
+            for i in self.links.variables.get((kind, source_id), [])
+            if i in self.variable_by_id
+        ]
+
+    @staticmethod
+    def masked(variable: Variable) -> bool:
+        return variable.sensitivity in MASKED_SENSITIVITY or variable.type in MASKED_TYPES \
+            or variable.role == "identifier"
+
+    def latest_drop(self, table_id: int) -> Drop | None:
+        found = [d for d in self.drops if d.table_id == table_id]
+        return found[-1] if found else None
+
+    def profiles(self, drop: Drop | None) -> dict[str, dict[str, Any]]:
+        if drop is None:
+            return {}
+        rows = self.session.scalars(select(Profile).where(Profile.drop_id == drop.id))
+        return {p.variable: p.data or {} for p in rows}
+
+    def post_hoc(self, decision: Decision) -> bool:
+        frozen = self.study.plan_frozen_at
+        return bool(decision.post_hoc) or (frozen is not None and decision.created_at > frozen)
+
+
+def _date(stamp: str | None) -> str | None:
+    return stamp[:10] if stamp else None
+
+
+def study_context(s: Study) -> dict[str, Any]:
+    study = s.study
+    return {
+        "title": study.title, "description": study.description, "target": study.target,
+        "index_time": study.index_time, "plan_frozen_at": study.plan_frozen_at,
+        "plan_frozen_on": _date(study.plan_frozen_at), "plan_note": study.plan_note,
+        "created_on": _date(study.created_at), "author": study.author,
+    }
+
+
+# ---- the dictionary ----
+
+def version_context(s: Study) -> dict[str, Any] | None:
+    version = s.session.scalars(
+        select(DictionaryVersion).order_by(DictionaryVersion.id.desc()).limit(1)
+    ).first()
+    if version is None:
+        return None
+    since = s.session.scalars(
+        select(Change.id).where(
+            Change.entity.in_(("variable", "table")), Change.id > (version.change_id or 0)
+        )
+    ).all()
+    return {"name": version.name, "note": version.note, "frozen_on": _date(version.created_at),
+            "author": version.author, "changes_since": len(since)}
+
+
+def _profile_context(s: Study, variable: Variable, data: dict[str, Any], drop: Drop) -> dict[str, Any]:
+    rows = data.get("rows", drop.rows)
+    missing = data.get("missing")
+    masked = s.masked(variable)
+    quasi = variable.sensitivity == "quasi-identifier"
+    result: dict[str, Any] = {
+        "drop": drop.id, "drop_label": drop.label, "rows": s.count(rows), "count": s.count(data.get("count")),
+        "missing": s.count(missing), "missing_share": s.share(missing, rows),
+        "distinct": data.get("distinct"), "distinct_exact": data.get("distinct_exact", True),
+        "missing_codes": [{"code": c.get("code"), "count": s.count(c.get("count"))}
+                          for c in data.get("missing_codes") or []],
+        "summary": [], "levels": [], "levels_other": None, "chart": None, "withheld": [],
+        "quantile_error": data.get("quantile_error"),
+    }
+    label = f"distribution of {variable.name} in drop {drop.id}"
+    if masked:
+        result["withheld"].append("values are not shown (identifier, sensitive or free text)")
+        return result
+    numeric = variable.type in NUMERIC_TYPES or "histogram" in data
+    keys = ["mean", "sd", "q1", "median", "q3"] if numeric else []
+    if variable.type in ("date", "datetime") or numeric:
+        keys = (["min"] if not quasi else []) + keys + (["max"] if not quasi else [])
+    if quasi:
+        result["withheld"].append("extremes withheld (quasi-identifier)")
+    result["summary"] = [{"name": k, "value": data[k]} for k in keys if data.get(k) is not None]
+    histogram = data.get("histogram") or {}
+    if histogram.get("counts"):
+        result["chart"] = charts.histogram(
+            list(histogram.get("edges") or []), list(histogram["counts"]), min_cell=s.min_cell,
+            show_extremes=not quasi, label=label,
+        )
+    levels = list(data.get("levels") or [])
+    if levels and not numeric:
+        other = (data.get("levels_other") or 0) + sum(int(x["count"]) for x in levels[MAX_LEVELS_SHOWN:])
+        result["levels"] = [{"value": x["value"], "count": s.count(x["count"])}
+                            for x in levels[:MAX_LEVELS_SHOWN]]
+        result["levels_other"] = s.count(other) if other else None
+        result["chart"] = charts.level_bars(levels, other=data.get("levels_other") or 0,
+                                            min_cell=s.min_cell, label=label)
+    return result
+
+
+def _last_change(s: Study, variable: Variable) -> dict[str, Any] | None:
+    change = s.session.scalars(
+        select(Change).where(Change.entity == "variable", Change.entity_id == variable.id)
+        .order_by(Change.id.desc()).limit(1)
+    ).first()
+    if change is None:
+        return None
+    return {"action": change.action, "field": change.field, "why": change.why,
+            "on": _date(change.at), "author": change.author, "question": change.question_id}
+
+
+def _codes_text(items: list[dict[str, Any]] | None) -> str:
+    return "; ".join(f"{i.get('code')} = {i['label']}" if i.get("label") else str(i.get("code"))
+                     for i in items or [])
+
+
+def _range(low: str | None, high: str | None) -> str | None:
+    if low is None and high is None:
+        return None
+    return f"{low if low is not None else '…'} to {high if high is not None else '…'}"
+
+
+def display_rows(variable: Variable, confirmed_on: str | None,
+                 last: dict[str, Any] | None) -> list[dict[str, str]]:
+    """The entry's fields as (label, text) rows in a fixed order, empty ones left out."""
+    kind = variable.type
+    if variable.unit:
+        kind += f", in {variable.unit}"
+    if variable.precision is not None:
+        kind += (", recorded as whole numbers" if variable.precision == 0 else
+                 f", recorded to {variable.precision} decimal{'s' if variable.precision != 1 else ''}")
+    source = variable.source
+    if source and variable.source_detail:
+        source += f" ({variable.source_detail})"
+    elif variable.source_detail:
+        source = variable.source_detail
+    status = variable.status
+    if variable.status == "confirmed" and variable.confirmed_by:
+        status += f" by {variable.confirmed_by}" + (f" on {confirmed_on}" if confirmed_on else "")
+    checks = ", ".join(w for w, on in (("required", variable.required), ("unique", variable.unique)) if on)
+    dates = "; ".join(x for x in (variable.date_format, variable.timezone) if x)
+    change = None
+    if last is not None:
+        change = f"{last['action']}" + (f" of {last['field']}" if last.get("field") else "") \
+            + f" on {last['on']} by {last['author']}" + (f": {last['why']}" if last.get("why") else "")
+    rows = [
+        ("Type", kind), ("Role", variable.role), ("Source", source), ("Instrument", variable.instrument),
+        ("Question text", variable.question_text), ("Derivation", variable.derivation),
+        ("Derived from", ", ".join(variable.derived_from or [])),
+        ("Time", variable.time_association),
+        ("Available", f"{variable.availability} the index time" if variable.availability
+         and variable.availability != "unknown" else variable.availability),
+        ("Levels", _codes_text(variable.levels)),
+        ("True values", ", ".join(variable.true_values or [])),
+        ("False values", ", ".join(variable.false_values or [])),
+        ("Possible range", _range(variable.minimum, variable.maximum)),
+        ("Plausible range", _range(variable.plausible_min, variable.plausible_max)),
+        ("Missing codes", _codes_text(variable.missing_codes)),
+        ("Largest missing share", None if variable.max_missing is None
+         else f"{100 * variable.max_missing:g}%"),
+        ("Checks", checks), ("Pattern", variable.pattern), ("Dates", dates),
+        ("Earlier names", ", ".join(variable.aliases or [])), ("References", variable.references),
+        ("Sensitivity", variable.sensitivity), ("Status", status), ("Last change", change),
+    ]
+    return [{"label": label, "value": str(value)} for label, value in rows if value not in (None, "")]
+
+
+def variable_context(s: Study, variable: Variable, profile: dict[str, Any] | None,
+                     drop: Drop | None) -> dict[str, Any]:
+    fields = {
+        name: getattr(variable, name) for name in (
+            "name", "label", "description", "type", "unit", "precision", "role", "source",
+            "source_detail", "instrument", "question_text", "derivation", "derived_from",
+            "time_association", "availability", "levels", "true_values", "false_values", "minimum",
+            "maximum", "plausible_min", "plausible_max", "missing_codes", "max_missing", "required",
+            "unique", "pattern", "date_format", "timezone", "aliases", "references", "sensitivity",
+            "status", "confirmed_by",
+        )
+    }
+    fields["confirmed_on"] = _date(variable.confirmed_at)
+    fields["last_change"] = _last_change(s, variable)
+    fields["masked"] = s.masked(variable)
+    fields["rows"] = display_rows(variable, fields["confirmed_on"], fields["last_change"])
+    fields["profile"] = _profile_context(s, variable, profile, drop) if profile and drop else None
+    return fields
+
+
+def _foreign_keys(s: Study, table: DataTable) -> list[dict[str, str]]:
+    keys = []
+    for variable in s.variables:
+        if variable.table_id == table.id and variable.references:
+            other, _, column = variable.references.rpartition(".")
+            keys.append({"column": variable.name, "table": other, "references": column})
+    return keys
+
+
+def table_context(s: Study, table: DataTable) -> dict[str, Any]:
+    drop = s.latest_drop(table.id)
+    profiles = s.profiles(drop)
+    groups: dict[str, list[dict[str, Any]]] = defaultdict(list)
+    deprecated: list[dict[str, Any]] = []
+    for variable in s.variables:
+        if variable.table_id != table.id:
+            continue
+        data = profiles.get(variable.name)
+        if data is None:
+            data = next((profiles[a] for a in variable.aliases or [] if a in profiles), None)
+        entry = variable_context(s, variable, data, drop)
+        (deprecated if variable.status == "deprecated" else groups[variable.role]).append(entry)
+    roles = [{"role": r, "title": ROLE_TITLES[r], "variables": groups[r]} for r in ROLE_ORDER if groups[r]]
+    if deprecated:
+        roles.append({"role": "deprecated", "title": "Deprecated", "variables": deprecated})
+    rules = s.session.scalars(
+        select(Rule).where(Rule.table_id == table.id, Rule.status == "active").order_by(Rule.id)
+    )
+    return {
+        "name": table.name, "description": table.description, "grain": table.grain,
+        "key": list(table.key or []), "foreign_keys": _foreign_keys(s, table),
+        "variable_count": sum(len(g["variables"]) for g in roles),
+        "profiled_drop": None if drop is None else
+        {"id": drop.id, "label": drop.label, "checked_on": _date(drop.checked_at), "rows": s.count(drop.rows)},
+        "groups": roles,
+        "rules": [{"name": r.name, "expression": r.expression, "severity": r.severity, "why": r.why}
+                  for r in rules],
+    }
+
+
+def dictionary_context(s: Study) -> dict[str, Any]:
+    return {"version": version_context(s), "tables": [table_context(s, t) for t in s.tables]}
+
+
+# ---- decisions and the methods ----
+
+def _facts(s: Study, decision: Decision) -> list[dict[str, Any]]:
+    """The numbers a decision rested on, as captured by the journal, with small counts withheld."""
+    found = []
+    for name, fact in (decision.facts or {}).items():
+        if not isinstance(fact, dict) or not fact.get("present", True):
+            continue
+        outliers = fact.get("outliers") or {}
+        found.append({
+            "variable": name, "drop": fact.get("drop"), "rows": s.count(fact.get("rows")),
+            "n": s.count(fact.get("n")), "missing": s.count(fact.get("missing")),
+            "missing_share": s.share(fact.get("missing"), fact.get("rows")),
+            "outliers": {k: s.count(v) for k, v in outliers.items() if v is not None},
+        })
+    return found
+
+
+def decision_context(s: Study, decision: Decision) -> dict[str, Any]:
+    code = None
+    if decision.code_path:
+        code = decision.code_path + (f":{decision.code_line}" if decision.code_line else "")
+    successor = next((d.id for d in s.decisions if d.supersedes_id == decision.id), None)
+    ended = None
+    if decision.status in ("superseded", "reverted"):
+        change = s.session.scalars(
+            select(Change).where(Change.entity == "decision", Change.entity_id == decision.id,
+                                 Change.action.in_(("supersede", "revert")))
+            .order_by(Change.id).limit(1)
+        ).first()
+        ended = None if change is None else {"why": change.why, "on": _date(change.at)}
+    return {
+        "id": decision.id, "ref": f"D{decision.id}", "text": decision.text, "kind": decision.kind,
+        "status": decision.status, "why": decision.why, "evidence": decision.evidence,
+        "alternatives": decision.alternatives, "variables": s.variable_names("decision", decision.id),
+        "drop": decision.drop_id, "code": code,
+        "commit": decision.git_commit[:12] if decision.git_commit else None,
+        "dirty": bool(decision.git_dirty), "assumption": decision.assumption,
+        "assumption_text": ASSUMPTION_TEXT.get(decision.assumption or ""), "seed": decision.seed,
+        "removed": s.count(decision.removed), "post_hoc": s.post_hoc(decision),
+        "taken_on": _date(decision.created_at), "author": decision.author,
+        "supersedes": decision.supersedes_id, "superseded_by": successor, "ended": ended,
+        "facts": _facts(s, decision),
+    }
+
+
+# what a finding is about, said without its values (used where the checker's message may hold values)
+RULE_TEXT = {
+    "absent-column": "the column is missing from the file",
+    "undeclared-column": "a column the dictionary does not know",
+    "renamed-column": "the column was found under an earlier name",
+    "type": "values not of the declared type", "level": "values not among the declared levels",
+    "range": "values outside the possible range", "plausible": "values outside the plausible range",
+    "required": "missing values in a required variable", "missing-share": "more missing than allowed",
+    "unique": "values repeating an earlier row", "key": "rows repeating an earlier key",
+    "pattern": "values not matching the pattern", "repeated-row": "rows repeating an earlier row",
+    "orphan": "rows referring to a key not in the referenced table",
+}
+
+
+def _finding_context(s: Study, finding: Finding, table_id: int,
+                     decisions: list[dict[str, Any]]) -> dict[str, Any]:
+    variable = next((v for v in s.variables if v.table_id == table_id and v.name == finding.variable),
+                    None)
+    safe = variable is None or not s.masked(variable)
+    return {
+        "variable": finding.variable, "rule": finding.rule, "severity": finding.severity,
+        "count": s.count(finding.count),
+        "message": finding.message if safe else RULE_TEXT.get(finding.rule, "values withheld"),
+        "resolved_by": [d["ref"] for d in decisions if finding.variable is not None
+                        and any(name.split(".")[-1] == finding.variable for name in d["variables"])],
+    }
+
+
+def drops_context(s: Study) -> list[dict[str, Any]]:
+    found = []
+    for drop in s.drops:
+        decisions = [decision_context(s, d) for d in s.decisions
+                     if d.drop_id == drop.id and d.status in IN_FORCE]
+        findings = s.session.scalars(
+            select(Finding).where(Finding.drop_id == drop.id).order_by(Finding.id)
+        )
+        comparison = drop.comparison or {}
+        records = comparison.get("records") or None
+        found.append({
+            "id": drop.id, "label": drop.label, "table": s.table_by_id[drop.table_id].name,
+            "file": drop.file_name, "checked_on": _date(drop.checked_at), "rows": s.count(drop.rows),
+            "columns": drop.columns, "dictionary_version": drop.dictionary_version,
+            "errors": drop.errors, "warnings": drop.warnings, "analysis": drop.analysis,
+            "against": drop.against_id,
+            "findings": [_finding_context(s, f, drop.table_id, decisions) for f in findings],
+            "decisions": [d["ref"] for d in decisions],
+            "drift": [{"variable": d.get("variable"), "measure": d.get("measure"), "value": d.get("value"),
+                       "band": d.get("band")} for d in comparison.get("drift") or []
+                      if d.get("band") not in (None, "stable")],
+            "records": None if not records else
+            {k: s.count(records.get(k)) for k in ("new", "vanished", "changed") if k in records},
+        })
+    return found
+
+
+def _decision_table(s: Study, decision: Decision) -> int | None:
+    if decision.drop_id is not None:
+        drop = next((d for d in s.drops if d.id == decision.drop_id), None)
+        if drop is not None:
+            return drop.table_id
+    for variable_id in s.links.variables.get(("decision", decision.id), []):
+        if variable_id in s.variable_by_id:
+            return s.variable_by_id[variable_id].table_id
+    return None
+
+
+def record_flows(s: Study) -> list[dict[str, Any]]:
+    """Per table with a drop marked as the analysed data set: received, removed at each step, analysed.
+
+    Received is the analysed drop's row count; each step is a decision in force that records how many
+    records it removed (``log --removed N``), in the order taken; analysed is received less the removed.
+    A decision counts for the table of its drop, else of its first variable; with one table, for it.
+    """
+    flows = []
+    for table in s.tables:
+        own = [d for d in s.drops if d.analysis and d.table_id == table.id]
+        if not own:
+            continue
+        analysed = own[-1]
+        steps = [d for d in s.decisions if d.removed is not None and d.status in IN_FORCE
+                 and (len(s.tables) == 1 or _decision_table(s, d) == table.id)]
+        left = analysed.rows - sum(d.removed or 0 for d in steps)
+        flows.append({
+            "table": table.name,
+            "drop": {"id": analysed.id, "label": analysed.label, "checked_on": _date(analysed.checked_at)},
+            "received": s.count(analysed.rows),
+            "steps": [decision_context(s, d) for d in steps],
+            "analysed": s.count(left),
+            "negative": left < 0,
+        })
+    return flows
+
+
+def methods_context(s: Study) -> dict[str, Any]:
+    in_force = [d for d in s.decisions if d.status in IN_FORCE]
+    flows = record_flows(s)
+    in_flow = {step["id"] for flow in flows for step in flow["steps"]}
+    known = {kind for _, _, kinds in METHOD_SECTIONS for kind in kinds}
+    sections = []
+    for key, title, kinds in METHOD_SECTIONS:
+        chosen = [d for d in in_force if d.id not in in_flow
+                  and (d.kind in kinds or (key == "other" and d.kind not in known))]
+        sections.append({"key": key, "title": title,
+                         "decisions": [decision_context(s, d) for d in chosen]})
+    commits: dict[str, list[str]] = defaultdict(list)
+    for d in in_force:
+        if d.git_commit:
+            commits[d.git_commit[:12]].append(f"D{d.id}")
+    pre = [d for d in in_force if not s.post_hoc(d)]
+    weights = [s.variable_name(v) for v in s.variables if v.role == "weight" and v.status != "deprecated"]
+    errors = [p.data.get("quantile_error") for p in s.session.scalars(select(Profile))
+              if isinstance(p.data, dict) and p.data.get("quantile_error")]
+    return {
+        "tables": [{"name": t.name, "grain": t.grain, "key": list(t.key or []),
+                    "variables": sum(1 for v in s.variables if v.table_id == t.id
+                                     and v.status != "deprecated")} for t in s.tables],
+        "version": version_context(s),
+        "drops": drops_context(s),
+        "flows": flows,
+        "sections": sections,
+        "plan": {"frozen_on": _date(s.study.plan_frozen_at), "note": s.study.plan_note,
+                 "pre_specified": len(pre), "post_hoc": len(in_force) - len(pre)},
+        "commits": [{"commit": c, "decisions": refs} for c, refs in commits.items()],
+        "definitions": DEFINITIONS,
+        "weights": weights,
+        "quantile_error": max(errors) if errors else None,
+        "appendix": {
+            "ended": [decision_context(s, d) for d in s.decisions if d.status in ("superseded", "reverted")],
+            "proposed": [decision_context(s, d) for d in s.decisions if d.status == "proposed"],
+        },
+    }
+
+
+# ---- validity, conclusions, questions ----
+
+def _threat_context(s: Study, threat: Threat) -> dict[str, Any]:
+    return {
+        "id": threat.id, "ref": f"T{threat.id}", "text": threat.text, "kind": threat.kind,
+        "severity": threat.severity, "mitigation": threat.mitigation, "status": threat.status,
+        "variables": s.variable_names("threat", threat.id),
+        "decisions": [f"D{i}" for i in s.links.decisions.get(("threat", threat.id), [])],
+        "recorded_on": _date(threat.created_at),
+    }
+
+
+def _question_context(s: Study, question: Question) -> dict[str, Any]:
+    return {
+        "id": question.id, "ref": f"Q{question.id}", "text": question.text, "to": question.to,
+        "priority": question.priority, "status": question.status, "asked_on": _date(question.created_at),
+        "author": question.author, "variables": s.variable_names("question", question.id),
+    }
+
+
+def open_questions(s: Study) -> list[dict[str, Any]]:
+    rows = s.session.scalars(select(Question).where(Question.status == "open").order_by(Question.id))
+    return [_question_context(s, q) for q in rows]
+
+
+def validity_context(s: Study) -> dict[str, Any]:
+    threats = list(s.session.scalars(select(Threat).order_by(Threat.id)))
+    return {
+        "groups": [{"kind": kind, "title": title,
+                    "threats": [_threat_context(s, t) for t in threats if t.kind == kind]}
+                   for kind, title in THREAT_KINDS],
+        "limitations": open_questions(s),
+    }
+
+
+def conclusions_context(s: Study) -> dict[str, Any]:
+    entries = list(s.session.scalars(select(Entry).order_by(Entry.created_at, Entry.id)))
+    threats = list(s.session.scalars(select(Threat).order_by(Threat.id)))
+    threat_vars: dict[int, set[int]] = {}
+    for threat in threats:
+        found = set(s.links.variables.get(("threat", threat.id), []))
+        for decision_id in s.links.decisions.get(("threat", threat.id), []):
+            found.update(s.links.variables.get(("decision", decision_id), []))
+        threat_vars[threat.id] = found
+    conclusions = []
+    for entry in entries:
+        if entry.kind != "conclusion":
+            continue
+        own = set(s.links.variables.get(("entry", entry.id), []))
+        bearing = [_threat_context(s, t) for t in threats if own & threat_vars[t.id]]
+        conclusions.append({"id": entry.id, "text": entry.text, "on": _date(entry.created_at),
+                            "author": entry.author, "variables": s.variable_names("entry", entry.id),
+                            "threats": bearing})
+    return {
+        "conclusions": conclusions,
+        "study_wide_threats": [_threat_context(s, t) for t in threats if not threat_vars[t.id]],
+        "next_steps": [{"id": e.id, "text": e.text, "on": _date(e.created_at), "author": e.author}
+                       for e in entries if e.kind in NEXT_KINDS],
+    }
+
+
+def questions_context(s: Study) -> dict[str, Any]:
+    questions = open_questions(s)
+    by_person: dict[str, list[dict[str, Any]]] = defaultdict(list)
+    for question in questions:
+        by_person[question.get("to") or "(nobody named)"].append(question)
+    statuses = s.session.scalars(select(Question.status)).all()
+    return {
+        "open": questions,
+        "by_person": [{"to": to, "questions": qs} for to, qs in sorted(by_person.items())],
+        "answered": statuses.count("answered"), "withdrawn": statuses.count("withdrawn"),
+    }
