@@ -17,6 +17,9 @@ from studylog.data.spec import TableSpec, VariableSpec
 from studylog.errors import NoStudyFound
 from studylog.store.session import StoreLocation
 
+# types are inferred from at most this many rows, spread evenly over the file (the profile itself reads
+# every row, and reports values that do not fit the inferred type as invalid)
+INFERENCE_ROWS = 100_000
 # the share of a file's columns that must be variables of the study's only table to use it unasked
 MATCH_SHARE = 0.5
 
@@ -88,14 +91,23 @@ def _specs_for(columns: Sequence[str], spec: TableSpec | None) -> dict[str, Vari
 
 
 def inferred_specs(data: Any, names: Sequence[str]) -> dict[str, tuple[VariableSpec, list[str]]]:
-    """For columns the dictionary does not know: the variable inference proposes, and its likely
-    missing codes (kept apart: they are counted as missing and suggested for review, not declared)."""
+    """For columns the dictionary does not know: the variable inference proposes (from at most
+    INFERENCE_ROWS rows spread over the file), and its likely missing codes (kept apart: they are
+    counted as missing and suggested for review, not declared)."""
     from studylog.data.infer import infer_column
     from studylog.data.spec import Code
 
+    import numpy as np
+    import pyarrow as pa
+
     found: dict[str, tuple[VariableSpec, list[str]]] = {}
+    if not names:
+        return found
+    sample = data.select(list(names))
+    if sample.num_rows > INFERENCE_ROWS:
+        sample = sample.take(pa.array(np.linspace(0, sample.num_rows - 1, INFERENCE_ROWS).astype(np.int64)))
     for name in names:
-        proposal = infer_column(name, data.column(name), data.num_rows)
+        proposal = infer_column(name, sample.column(name), sample.num_rows)
         levels = tuple(Code(str(level["code"]), level.get("label"), level.get("order"))
                        for level in proposal.levels)
         variable = VariableSpec(

@@ -31,6 +31,8 @@ MIN_PAIR_CASES = 10
 MAX_NUMERIC_COLUMNS = 50
 MAX_PAIR_LEVELS = 50
 DEFAULT_STRONG = 0.9
+INTEGER_COUNTING_SPAN = 1 << 22
+BLOCK_ROWS = 1 << 16
 
 
 @dataclass
@@ -44,10 +46,21 @@ class RankBase:
     groups: int
 
     @classmethod
-    def of(cls, values: np.ndarray) -> RankBase:
+    def of(cls, values: np.ndarray, integer: bool = False) -> RankBase:
+        """One sort; whole numbers spanning fewer than 2^22 values are counted instead of sorted (a
+        tie group per possible value, empty groups included: ranks are unchanged by empty groups)."""
         valid = ~np.isnan(values)
         rows = np.flatnonzero(valid)
         present = values[rows]
+        if integer and present.size and present.max() - present.min() < INTEGER_COUNTING_SPAN:
+            low = present.min()
+            offsets = (present - low).astype(np.int64)
+            counts = np.bincount(offsets)
+            seen = np.flatnonzero(counts)
+            sorted_values = np.repeat(low + seen.astype(np.float64), counts[seen])
+            group_row = np.zeros(values.size, dtype=np.int64)
+            group_row[rows] = offsets
+            return cls(values, valid, sorted_values, group_row, int(counts.size))
         order = np.argsort(present, kind="stable")
         sorted_values = present[order]
         starts = np.empty(sorted_values.size, dtype=bool)
@@ -62,12 +75,21 @@ class RankBase:
     def ranks(self, rows: np.ndarray) -> tuple[np.ndarray, float]:
         """Average ranks (1..len(rows)) of the values at ``rows`` among those rows only, and
         sum(t^3 - t) over their tie groups (for tie corrections)."""
+        ranks, counts, _average = self._ranks(rows)
+        counts_f = counts.astype(np.float64)
+        return ranks, float((counts_f**3 - counts_f).sum())
+
+    def _ranks(self, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         group = self.group_row[rows]
         counts = np.bincount(group, minlength=self.groups)
-        last = np.cumsum(counts)
-        average = last - (counts - 1) / 2.0
-        counts_f = counts.astype(np.float64)
-        return average[group], float((counts_f**3 - counts_f).sum())
+        # a tie group's average rank: its last position less half of the others in it
+        average = np.cumsum(counts) - (counts - 1) / 2.0
+        return average[group], counts, average
+
+    def rank_sums(self, rows: np.ndarray) -> tuple[np.ndarray, float]:
+        """Ranks on ``rows`` and the sum of their squares (from the groups, not the rows)."""
+        ranks, counts, average = self._ranks(rows)
+        return ranks, float(counts @ (average * average))
 
 
 def pearson(x: np.ndarray, y: np.ndarray) -> float | None:
@@ -81,11 +103,68 @@ def pearson(x: np.ndarray, y: np.ndarray) -> float | None:
     return max(-1.0, min(1.0, float(dx @ dy) / math.sqrt(sxx * syy)))
 
 
+def pearson_matrix(bases: Sequence[RankBase]) -> tuple[np.ndarray, np.ndarray]:
+    """Pearson's r of every pair on its complete cases, and the pair counts, in one pass over the rows.
+
+    Sums over each pair's complete cases come from matrix products of the values (shifted by each
+    column's mean, 0 where missing) and the validity indicators, block by block:
+    n_ij = V_i.V_j, Sx_ij = X_i.V_j, Sxx_ij = X_i^2.V_j, Sxy_ij = X_i.X_j; then
+    r = (Sxy - Sx Sy / n) / sqrt((Sxx - Sx^2 / n)(Syy - Sy^2 / n)). Shifting by the mean keeps the
+    differences of sums well conditioned. r is NaN where a variable is constant on the pair's cases.
+    """
+    p = len(bases)
+    rows = bases[0].values.size if p else 0
+    centre = np.array([b.sorted_values.mean() if b.sorted_values.size else 0.0 for b in bases])
+    xx = np.zeros((p, p))
+    xv = np.zeros((p, p))
+    x2v = np.zeros((p, p))
+    vv = np.zeros((p, p))
+    for start in range(0, rows, BLOCK_ROWS):
+        stop = min(rows, start + BLOCK_ROWS)
+        block = np.empty((stop - start, p))
+        for j, base in enumerate(bases):
+            block[:, j] = base.values[start:stop]
+        block -= centre
+        valid = ~np.isnan(block)
+        block[~valid] = 0.0
+        v = valid.astype(np.float64)
+        xx += block.T @ block
+        xv += block.T @ v
+        x2v += (block * block).T @ v
+        vv += v.T @ v
+    n = vv
+    with np.errstate(divide="ignore", invalid="ignore"):
+        sx = xv
+        sy = xv.T
+        cov = xx - sx * sy / n
+        var_x = x2v - sx * sx / n
+        var_y = x2v.T - sy * sy / n
+        # a variable constant on the pair's cases leaves only rounding error in its sum of squares
+        flat = (var_x <= 1e-12 * np.maximum(x2v, 1e-300)) | (var_y <= 1e-12 * np.maximum(x2v.T, 1e-300))
+        r = cov / np.sqrt(var_x * var_y)
+    r[flat | (n < 2)] = np.nan
+    return np.clip(r, -1.0, 1.0), n.astype(np.int64)
+
+
 def spearman(x: RankBase, y: RankBase, rows: np.ndarray) -> float | None:
-    """Spearman's rho on ``rows`` (the pair's complete cases), ranked on those rows."""
-    rx, _ = x.ranks(rows)
-    ry, _ = y.ranks(rows)
-    return pearson(rx, ry)
+    """Spearman's rho on ``rows`` (the pair's complete cases), ranked on those rows: Pearson's r of the
+    ranks, whose mean is (n + 1) / 2 whatever the ties."""
+    n = rows.size
+    rx, sxx = x.rank_sums(rows)
+    ry, syy = y.rank_sums(rows)
+    mean_square = n * ((n + 1) / 2.0) ** 2
+    var_x, var_y = sxx - mean_square, syy - mean_square
+    if var_x <= 1e-9 * sxx or var_y <= 1e-9 * syy:
+        return None
+    return max(-1.0, min(1.0, (float(rx @ ry) - mean_square) / math.sqrt(var_x * var_y)))
+
+
+def compact_groups(codes: np.ndarray, levels: int) -> tuple[np.ndarray, int]:
+    """Level indices renumbered 0..k-1 over the levels that occur (no sort of the rows)."""
+    seen = np.flatnonzero(np.bincount(codes, minlength=levels))
+    renumber = np.full(max(levels, 1), -1, dtype=np.int64)
+    renumber[seen] = np.arange(seen.size)
+    return renumber[codes], int(seen.size)
 
 
 @dataclass
@@ -100,15 +179,16 @@ def correlations(columns: Sequence[NumericColumn], strong: float = DEFAULT_STRON
     """Every pair of numeric columns (the first 50): r, rho, n, strong, and which one to consider."""
     used = list(columns[:MAX_NUMERIC_COLUMNS])
     pairs: list[dict[str, Any]] = []
+    r, counts = pearson_matrix([c.base for c in used])
     for i, a in enumerate(used):
-        for b in used[i + 1:]:
-            both = a.base.valid & b.base.valid
-            rows = np.flatnonzero(both)
+        for j in range(i + 1, len(used)):
+            b = used[j]
+            n = int(counts[i, j])
             entry: dict[str, Any] = {"a": a.name, "b": b.name, "pearson": None, "spearman": None,
-                                     "n": int(rows.size), "strong": False}
-            if rows.size >= MIN_PAIR_CASES:
-                entry["pearson"] = pearson(a.base.values[rows], b.base.values[rows])
-                entry["spearman"] = spearman(a.base, b.base, rows)
+                                     "n": n, "strong": False}
+            if n >= MIN_PAIR_CASES:
+                entry["pearson"] = None if np.isnan(r[i, j]) else float(r[i, j])
+                entry["spearman"] = spearman(a.base, b.base, np.flatnonzero(a.base.valid & b.base.valid))
             pairs.append(entry)
     # mean absolute correlation of each input with the other inputs: the tie-breaker for strong pairs
     inputs = {c.name for c in used if c.is_input}
@@ -185,11 +265,11 @@ def group_comparisons(by: LevelColumn, numeric: Sequence[NumericColumn]) -> dict
         entry: dict[str, Any] = {"variable": column.name, "n": int(rows.size), "anova": None,
                                  "kruskal_wallis": None}
         if rows.size >= 3:
-            present, groups = np.unique(by.codes[rows], return_inverse=True)
-            entry["groups"] = int(present.size)
-            entry["anova"] = significance.anova(groups, column.base.values[rows], int(present.size))
+            groups, k = compact_groups(by.codes[rows], by.levels)
+            entry["groups"] = k
+            entry["anova"] = significance.anova(groups, column.base.values[rows], k)
             ranks, tie_sum = column.base.ranks(rows)
-            entry["kruskal_wallis"] = significance.kruskal_wallis(groups, ranks, int(present.size), tie_sum)
+            entry["kruskal_wallis"] = significance.kruskal_wallis(groups, ranks, k, tie_sum)
         results.append(entry)
     for test in ("anova", "kruskal_wallis"):
         adjusted = significance.holm([r[test]["p_unadjusted"] if r[test] else None for r in results])

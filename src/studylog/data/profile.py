@@ -84,7 +84,7 @@ def _profile_column(name: str, strings: pa.ChunkedArray, spec: VariableSpec,
             fractional = np.isfinite(values) & (values != np.floor(values))
             invalid |= fractional
             values[fractional] = np.nan
-        column.base = pairs.RankBase.of(values)
+        column.base = pairs.RankBase.of(values, integer=kind == "integer")
         entry.update(univariate.numeric_summary(column.base.sorted_values, kind == "integer"))
         entry["invalid"] = int(invalid.sum())
         entry["invalid_examples"] = univariate.invalid_examples(strings, invalid, masked)
@@ -192,8 +192,8 @@ def _leakage(columns: Sequence[_Column], target: _Column, target_levels: pairs.L
         if target_levels is not None and column.base is not None:
             rows = np.flatnonzero(column.base.valid & (target_levels.codes >= 0))
             if rows.size >= pairs.MIN_PAIR_CASES:
-                present, groups = np.unique(target_levels.codes[rows], return_inverse=True)
-                result = significance.anova(groups, column.base.values[rows], int(present.size))
+                groups, k = pairs.compact_groups(target_levels.codes[rows], target_levels.levels)
+                result = significance.anova(groups, column.base.values[rows], k)
                 measure, value = "eta_squared", (result["eta_squared"] if result else None)
         elif target_levels is not None and column.levels is not None:
             result = pairs.associations([column.levels, target_levels])

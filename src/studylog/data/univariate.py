@@ -450,14 +450,18 @@ def date_summary(seconds_sorted: np.ndarray, kind: str) -> dict[str, Any]:
 
 
 def text_summary(strings: pa.ChunkedArray, missing: np.ndarray) -> dict[str, Any]:
-    """Distinct values and lengths, without listing any text."""
-    present = strings.filter(pa.array(~missing))
-    lengths = pc.utf8_length(present)
-    bounds = pc.min_max(lengths).as_py() if len(present) else {"min": None, "max": None}
-    distinct = int(pc.count_distinct(present).as_py()) if len(present) else 0
+    """Distinct values and lengths, without listing any text (no copy of the column is made)."""
+    present = int((~missing).sum())
+    if present == 0:
+        return {"distinct": 0, "length": {"min": None, "max": None, "mean": None}, "repeated": 0}
+    # distinct non-null texts, less the distinct texts that are missing (codes, blanks)
+    distinct = int(pc.count_distinct(strings).as_py())
+    missing_present = missing & _as_bool(pc.is_valid(strings))
+    if missing_present.any():
+        distinct -= int(pc.count_distinct(strings.take(pa.array(np.flatnonzero(missing_present)))).as_py())
+    lengths = np.asarray(pc.fill_null(pc.utf8_length(strings), 0).to_numpy(zero_copy_only=False))[~missing]
     return {
         "distinct": distinct,
-        "length": {"min": bounds["min"], "max": bounds["max"],
-                   "mean": float(pc.mean(lengths).as_py()) if len(present) else None},
-        "repeated": len(present) - distinct,
+        "length": {"min": int(lengths.min()), "max": int(lengths.max()), "mean": float(lengths.mean())},
+        "repeated": present - distinct,
     }
