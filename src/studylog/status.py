@@ -19,6 +19,7 @@ PROVIDERS: list[str] = [
     "studylog.questions:status_sections",
     "studylog.threats:status_sections",
     "studylog.journal:status_sections",
+    "studylog.drops:status_sections",
 ]
 
 
