@@ -207,9 +207,9 @@ def build(session: Session) -> Built:
         Profile(drop_id=drop3.id, variable="income", data={
             "name": "income", "type": "number", "rows": 1250, "count": 1100, "missing": 150,
             "missing_codes": [{"code": "-99", "count": 120}, {"code": "-98", "count": 4}],
-            "distinct": 900, "distinct_exact": True, "min": 4321.0, "max": 987654.0, "mean": 41234.5,
+            "distinct": 900, "distinct_exact": True, "min": 4321.0, "max": 987123.0, "mean": 41234.5,
             "sd": 20000.0, "q1": 25000.0, "median": 38000.0, "q3": 52000.0,
-            "histogram": {"edges": [4321, 50000, 987654], "counts": [800, 300]},
+            "histogram": {"edges": [4321, 50000, 987123], "counts": [800, 300]},
         }),
         Profile(drop_id=drop3.id, variable="diagnosis", data={
             "name": "diagnosis", "type": "categorical", "rows": 1250, "count": 1250, "missing": 0,

@@ -1,0 +1,275 @@
+"""Rendering the documents: structure (parsed HTML and Markdown tokens), escaping, and what is sent out."""
+
+from __future__ import annotations
+
+from html.parser import HTMLParser
+from pathlib import Path
+
+import pytest
+from markdown_it import MarkdownIt
+
+from report_study import (
+    AGE_MAX,
+    AGE_MIN,
+    BP_LABEL,
+    MEMBER_ID_VALUE,
+    SECRET_LEVEL,
+    build_in_store,
+)
+from studylog import report
+from studylog.store.session import locate, transaction
+
+
+class Page(HTMLParser):
+    """Every start tag with its attributes, the text, and the heading texts of an HTML document."""
+
+    def __init__(self) -> None:
+        super().__init__(convert_charrefs=True)
+        self.tags: list[tuple[str, dict[str, str | None]]] = []
+        self.text: list[str] = []
+        self.headings: list[tuple[str, str]] = []
+        self._heading: str | None = None
+        self._style = False
+
+    def handle_starttag(self, tag: str, attrs: list[tuple[str, str | None]]) -> None:
+        self.tags.append((tag, dict(attrs)))
+        if tag in ("h1", "h2", "h3", "h4"):
+            self._heading = tag
+            self.headings.append((tag, ""))
+        self._style = tag == "style"
+
+    def handle_endtag(self, tag: str) -> None:
+        if tag == self._heading:
+            self._heading = None
+        if tag == "style":
+            self._style = False
+
+    def handle_data(self, data: str) -> None:
+        if self._style:
+            return
+        self.text.append(data)
+        if self._heading is not None:
+            level, text = self.headings[-1]
+            self.headings[-1] = (level, text + data)
+
+    @property
+    def all_text(self) -> str:
+        return "".join(self.text)
+
+
+def parse(html: str) -> Page:
+    page = Page()
+    page.feed(html)
+    page.close()
+    return page
+
+
+@pytest.fixture
+def built(study: Path):  # type: ignore[no-untyped-def]
+    return build_in_store()
+
+
+def render(document: str, fmt: str, **options) -> str:  # type: ignore[no-untyped-def]
+    with transaction(locate(), write=False) as session:
+        return report.render(session, document, fmt=fmt, **options)
+
+
+@pytest.mark.parametrize("document", list(report.DOCUMENTS))
+def test_every_html_document_is_self_contained_and_escaped(built, document: str) -> None:  # type: ignore[no-untyped-def]
+    html = render(document, "html")
+    page = parse(html)
+    tags = [t for t, _ in page.tags]
+    # nothing is fetched from outside and nothing runs: no scripts, no links, no images, no iframes
+    assert "script" not in tags and "img" not in tags and "link" not in tags and "iframe" not in tags
+    for _, attrs in page.tags:
+        assert not any(name.startswith("on") for name in attrs), attrs
+        # nothing is loaded from anywhere; a link in a description stays a link (never javascript:)
+        assert "src" not in attrs, attrs
+        assert not (attrs.get("href") or "").startswith("javascript:"), attrs
+    assert tags.count("style") == 1 and "@media print" in html and "@page" in html
+    assert page.headings[0] == ("h1", "Clinic readmission study")
+    # the caution about personal data closes every document
+    assert "apply them before you share this document" in page.all_text.split("Generated")[-1]
+    assert tags[-1] == "p" and "footer" in tags
+
+
+def test_dictionary_html_structure(built) -> None:  # type: ignore[no-untyped-def]
+    page = parse(render("dictionary", "html"))
+    headings = [text for level, text in page.headings if level == "h3"]
+    assert headings == ["Table members", "Table visits"]
+    groups = [text for level, text in page.headings if level == "h4"]
+    visits = groups[groups.index("Cross-field rules"):]
+    # variables grouped by role in a fixed order, the target first
+    assert visits.index("Target") < visits.index("Inputs") < visits.index("Identifiers") \
+        < visits.index("Time")
+    assert "systolic_bp " + BP_LABEL in groups
+    text = page.all_text
+    assert "agreed-v1" in text and "1 recorded change since that version" in text
+    assert "member_id → members.member_id" in text
+    assert "update of maximum on 2026-03-03 by analyst: the registry accepts ages up to 120" in text
+    assert "confirmed by data owner on 2026-03-03" in text
+    # one inline SVG chart per profiled variable that may show values: age, sex, systolic_bp,
+    # readmitted (not member_id, income, diagnosis; discharged has no histogram)
+    svgs = [attrs for tag, attrs in page.tags if tag == "svg"]
+    assert len(svgs) == 4
+    assert all(a.get("xmlns") == "http://www.w3.org/2000/svg" for a in svgs)
+
+
+def test_hostile_description_shows_as_text_in_html(built) -> None:  # type: ignore[no-untyped-def]
+    html = render("dictionary", "html")
+    page = parse(html)
+    assert "<script>alert('x')</script>" in page.all_text
+    assert "<img src=x onerror=alert(1)>" in page.all_text
+    assert '<div onclick="steal()">raw block</div>' in page.all_text
+    assert "&lt;script&gt;" in html and "<script" not in html
+    assert not any(tag == "div" and "onclick" in attrs for tag, attrs in page.tags)
+    # the Markdown image is not turned into an <img> that would be fetched (at most a plain link)
+    assert not any(tag == "img" or "src" in attrs for tag, attrs in page.tags)
+
+
+def _html_tokens(markdown: str) -> list[str]:
+    """Raw HTML a Markdown viewer WOULD pass through (markdown-it with html enabled, as most do)."""
+    tokens = MarkdownIt("commonmark").parse(markdown)
+    found = []
+    for token in tokens:
+        if token.type == "html_block":
+            found.append(token.content)
+        for child in token.children or []:
+            if child.type in ("html_inline", "image"):
+                found.append(child.content or child.attrGet("src") or "")
+    return found
+
+
+@pytest.mark.parametrize("document", list(report.DOCUMENTS))
+def test_markdown_passes_no_raw_html_or_images(built, document: str) -> None:  # type: ignore[no-untyped-def]
+    text = render(document, "md")
+    assert _html_tokens(text) == []
+    rendered = MarkdownIt("commonmark").render(text)
+    assert "<script" not in rendered
+    assert "<img" not in rendered and "<div onclick" not in rendered
+    assert text.rstrip().endswith("apply them before you share this document.*")
+
+
+def test_markdown_structure_of_the_writeup(built) -> None:  # type: ignore[no-untyped-def]
+    text = render("writeup", "md")
+    tokens = MarkdownIt("commonmark").enable("table").parse(text)
+    headings = [tokens[i + 1].content for i, t in enumerate(tokens) if t.type == "heading_open"
+                and t.tag == "h2"]
+    assert headings == ["Methods", "Threats to validity", "Conclusions", "Open questions",
+                        "Data dictionary"]
+    tables = [t for t in tokens if t.type == "table_open"]
+    assert len(tables) >= 10  # findings, record flow, appendix, questions, one per variable...
+    # the record flow table: received 1,250; removed 40 and <5; analysed 1,250 - 43
+    flow_start = text.index("| Received |")
+    flow = text[flow_start:text.index("| **Analysed** |", flow_start) + 40]
+    assert "| Received | 1,250 |" in flow and "−40" in flow and "−<5" in flow
+    assert "**1,207**" in flow
+
+
+@pytest.mark.parametrize("fmt", ["md", "html"])
+def test_masked_values_and_small_counts_stay_masked(built, fmt: str) -> None:  # type: ignore[no-untyped-def]
+    text = render("writeup", fmt)
+    # values of a sensitive variable, identifier values, and the extremes of a quasi-identifier
+    assert SECRET_LEVEL not in text
+    assert MEMBER_ID_VALUE not in text
+    assert "987123" not in text and "987,123" not in text and "4321" not in text and "4,321" not in text
+    assert f">{AGE_MIN}<" not in text and f">{AGE_MAX}<" not in text
+    assert "min 17" not in text and "max 103" not in text
+    # counts from 1 to 4 are "<5": sex missing 2, finding count 3, records vanished 2, removed 3
+    assert "<5" in text or "&lt;5" in text
+    for small in ("missing in 2 ", " 2 missing", "3 rows", "2 vanished", "−3 "):
+        assert small not in text
+    # the private working note is not a document's content
+    assert "Mr Example" not in text
+
+
+def test_min_cell_threshold_moves(built) -> None:  # type: ignore[no-untyped-def]
+    text = render("methods", "md", min_cell=11)
+    assert "<11" in text and "| 10 |" not in text
+    # with a threshold of 1 nothing is withheld as small
+    plain = render("methods", "md", min_cell=1)
+    assert "<1" not in plain and "−3" in plain
+
+
+def test_methods_in_order_with_decision_refs_and_appendix(built) -> None:  # type: ignore[no-untyped-def]
+    ids = built.ids
+    text = render("methods", "md")
+    order = ["### Data and its dictionary", "### Data received and checked", "### Record flow",
+             "### Cleaning and recoding", "### Missing data", "### Outliers",
+             "### Sampling, split and validation design", "### Modelling",
+             "### Pre-specified and post-hoc decisions", "### Statistical definitions", "### Software",
+             "### Appendix: decisions not in force"]
+    positions = [text.index(h) for h in order]
+    assert positions == sorted(positions)
+    body, appendix = text.split("### Appendix: decisions not in force")
+    # superseded, reverted and proposed decisions only in the appendix
+    for key in ("d6", "d8", "d9"):
+        assert f"[D{ids[key]}]" not in body and f"D{ids[key]}" in appendix
+    assert f"superseded by D{ids['d7']}" in appendix and "the model does not need it" in appendix
+    assert f"[D{ids['d7']}; post hoc]" in body and f"[D{ids['d1']}]" in body
+    assert "missing at random given the observed data (MAR)" in body
+    assert "Random seed: 20260301." in body
+    assert "commit `0123456789ab`" in body and "commit `fedcba987654` (D" in body
+    assert "Carried out in `prep/clean.py:12`, commit `0123456789ab`." in body
+    assert "fixed on 2026-03-10" in body and "5 were taken before that and 2 after it" in body
+    import importlib.metadata
+    import platform
+
+    # software versions as the installed distributions report them
+    assert f"Python {platform.python_version()}" in body
+    assert f"pyarrow {importlib.metadata.version('pyarrow')}" in body
+
+
+def test_validity_conclusions_and_questions(built) -> None:  # type: ignore[no-untyped-def]
+    validity = render("validity", "md")
+    sections = ["### Internal validity", "### External validity", "### Construct validity",
+                "### Statistical conclusion validity", "### Open limitations"]
+    assert [validity.index(s) for s in sections] == sorted(validity.index(s) for s in sections)
+    assert "Severity high; open. Mitigation: sensitivity analysis under MNAR" in validity
+    assert "Is -99 in income a refusal?" in validity and "Are ages above 100 real?" not in validity
+    conclusions = render("conclusions", "md")
+    bp = conclusions.index("Readmission rises")
+    income = conclusions.index("Household income shows")
+    assert "Triage pressure may not reflect" in conclusions[bp:income]
+    assert "Income may be missing not at random" in conclusions[income:]
+    assert "A single clinic" in conclusions.split("as a whole")[1]
+    assert "- Validate on the 2026 stays" in conclusions
+    questions = render("questions", "md")
+    assert "2 questions still open; 1 answered and 1 withdrawn." in questions
+    assert questions.index("### To clinic lab") < questions.index("### To data owner")
+
+
+def test_user_template_gets_the_same_context(built, tmp_path: Path) -> None:  # type: ignore[no-untyped-def]
+    mine = tmp_path / "mine.html.j2"
+    mine.write_text(
+        "{% extends '_page.html.j2' %}{% block content %}<p id=n>{{ methods.flows[0].analysed }}</p>"
+        "{% for t in dictionary.tables %}<i>{{ t.name }}</i>{% endfor %}{{ study.description|md }}"
+        "{% endblock %}", encoding="utf-8")
+    html = render("writeup", "html", template=mine)
+    page = parse(html)
+    assert "1207" in page.all_text and "membersvisits" in page.all_text
+    assert ("strong", {}) in page.tags  # the study's Markdown description, rendered
+    broken = tmp_path / "broken.md.j2"
+    broken.write_text("{% for x in %}", encoding="utf-8")
+    from studylog.errors import InputFileError
+
+    with pytest.raises(InputFileError, match="broken.md.j2, line 1"):
+        render("methods", "md", template=broken)
+
+
+def test_templates_are_found_in_the_installed_package() -> None:
+    import importlib.resources
+
+    folder = importlib.resources.files("studylog.templates")
+    names = {entry.name for entry in folder.iterdir()}
+    for document in report.DOCUMENTS:
+        for fmt in report.FORMATS:
+            assert f"{document}.{fmt}.j2" in names
+
+
+def test_an_empty_study_renders_every_document(study: Path) -> None:
+    for document in report.DOCUMENTS:
+        for fmt in report.FORMATS:
+            text = render(document, fmt)
+            assert "apply them before you share this document" in text
+    assert "No data drop has been checked." in render("methods", "md")
