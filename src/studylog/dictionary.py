@@ -57,7 +57,7 @@ def resolve_table(session: Session, name: str | None) -> DataTable:
 
 def will_create_default_table(session: Session, table: str | None) -> bool:
     """Whether adding a variable with this --table would first create the default table."""
-    return table is None and not tables(session)
+    return table is None and session.scalar(select(DataTable.id).limit(1)) is None
 
 
 def _key_list(key: Any) -> list[str]:

@@ -83,7 +83,8 @@ def _cell(field: str, value: Any) -> str:
 def export_csv(session: Session, table: str | None = None) -> str:
     _, variables = _entries(session, table)
     out = io.StringIO()
-    writer = csv.writer(out, lineterminator="\n")
+    # CRLF as RFC 4180 has it; it also makes the writer quote cells holding a lone "\r"
+    writer = csv.writer(out, lineterminator="\r\n")
     writer.writerow(COLUMNS)
     for entry in variables:
         writer.writerow([_cell(column, entry[column]) for column in COLUMNS])
@@ -213,7 +214,8 @@ def import_file(session: Session, path: str | Path, *, why: str | None = None) -
     path = Path(path)
     shown = str(path)
     try:
-        text = path.read_text(encoding="utf-8-sig")
+        # bytes, not read_text: universal newlines would turn a "\r" inside a quoted cell into "\n"
+        text = path.read_bytes().decode("utf-8-sig")
     except FileNotFoundError:
         raise InputFileError(shown, "no such file") from None
     except (OSError, UnicodeDecodeError) as exc:

@@ -16,6 +16,7 @@ from studylog import study as study_records
 
 PROVIDERS: list[str] = [
     "studylog.status:study_sections",
+    "studylog.dictionary_status:sections",
     "studylog.questions:status_sections",
     "studylog.threats:status_sections",
     "studylog.journal:status_sections",
