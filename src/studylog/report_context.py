@@ -477,8 +477,9 @@ def drops_context(s: Study) -> list[dict[str, Any]]:
             "drift": [{"variable": d.get("variable"), "measure": d.get("measure"), "value": d.get("value"),
                        "band": d.get("band")} for d in comparison.get("drift") or []
                       if d.get("band") not in (None, "stable")],
-            "records": None if not records else
-            {k: s.count(records.get(k)) for k in ("new", "vanished", "changed") if k in records},
+            "records": None if not records or drop.against_id is None else
+            {k: s.count(records[k]) for k in ("new", "vanished", "changed")
+             if records.get(k) is not None} or None,
         })
     return found
 
@@ -499,16 +500,19 @@ def record_flows(s: Study) -> list[dict[str, Any]]:
 
     Received is the analysed drop's row count; each step is a decision in force that records how many
     records it removed (``log --removed N``), in the order taken; analysed is received less the removed.
-    A decision counts for the table of its drop, else of its first variable; with one table, for it.
+    A decision counts for the table of its drop, else of its first variable; one that names neither
+    counts for the analysed table when only one table has an analysed drop.
     """
     flows = []
+    analysed_tables = {d.table_id for d in s.drops if d.analysis}
     for table in s.tables:
         own = [d for d in s.drops if d.analysis and d.table_id == table.id]
         if not own:
             continue
         analysed = own[-1]
         steps = [d for d in s.decisions if d.removed is not None and d.status in IN_FORCE
-                 and (len(s.tables) == 1 or _decision_table(s, d) == table.id)]
+                 and _decision_table(s, d) in ((table.id, None) if len(analysed_tables) == 1
+                                               else (table.id,))]
         left = analysed.rows - sum(d.removed or 0 for d in steps)
         flows.append({
             "table": table.name,
