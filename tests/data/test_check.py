@@ -250,12 +250,12 @@ def test_dates_agree_with_the_standard_library(texts: list[str]) -> None:
     parsed = typed.parse(pa.array(texts, pa.string()), spec)
 
     def reference(text: str) -> dt.date | None:
-        # the standard library's strict reading of %Y-%m-%d, written back exactly
+        # the standard library's reading of an ISO date, written back exactly (YYYY-MM-DD)
         try:
-            value = dt.datetime.strptime(text, "%Y-%m-%d").date()
+            value = dt.date.fromisoformat(text)
         except ValueError:
             return None
-        return value if value.strftime("%Y-%m-%d") == text else None
+        return value if value.isoformat() == text else None
 
     expected = [reference(t.strip()) if t.strip() else None for t in texts]
     assert parsed.values.to_pylist() == expected

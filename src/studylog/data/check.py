@@ -167,11 +167,15 @@ class BatchContext:
         return self._key_digest
 
     def row_digest(self) -> Any:
-        """The 16-byte digest of each whole row (every column of the file, in order)."""
-        from studylog.data.repeats import combine
+        """The 16-byte digest of each whole row: every column of the file, in the order of their names.
+
+        Name order, so that the same records with their columns reordered have the same row digests
+        (the record comparison between drops relies on it; repeated rows do not depend on it).
+        """
+        from studylog.data.repeats import row_digests
 
         if self._row_digest is None:
-            self._row_digest = combine([self.digest(c) for c in self.plan.columns])
+            self._row_digest = row_digests([self.column(c) for c in sorted(self.plan.columns)])
         return self._row_digest
 
     def examples(self, mask: Any, columns: Sequence[str], *, limit: int = EXAMPLES) -> list[Example]:

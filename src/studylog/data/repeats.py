@@ -33,6 +33,8 @@ _MUL_LO = 0xC4CEB9FE1A85EC53
 _NULL_HI = 0x2545F4914F6CDD1D
 _NULL_LO = 0x5851F42D4C957F2D
 _ROW_MUL = 0x100000001B3
+ROW_SEPARATOR = "\x1f"
+NULL_CELL = "\x1e"
 
 
 def _finalise(h: np.ndarray) -> np.ndarray:
@@ -125,7 +127,11 @@ def _fold_window(
 
 
 def combine(parts: Sequence[tuple[np.ndarray, np.ndarray]]) -> tuple[np.ndarray, np.ndarray]:
-    """One digest of several cells in order (a composite key, or a whole row)."""
+    """One digest of several cells in order (a composite key, or a whole row).
+
+    Each cell digest is already finalised, so the lanes are folded with one multiply-xorshift step per
+    cell and finalised once at the end.
+    """
     import numpy as np
 
     if len(parts) == 1:
@@ -133,11 +139,37 @@ def combine(parts: Sequence[tuple[np.ndarray, np.ndarray]]) -> tuple[np.ndarray,
     hi = np.full(len(parts[0][0]), _SEED_LO, dtype=np.uint64)
     lo = np.full(len(parts[0][0]), _SEED_HI, dtype=np.uint64)
     mul = np.uint64(_ROW_MUL)
+    shift = np.uint64(31)
     with np.errstate(over="ignore"):
         for part_hi, part_lo in parts:
-            hi = _finalise(hi * mul + part_hi)
-            lo = _finalise(lo * mul + part_lo)
-    return hi, lo
+            hi ^= part_hi
+            hi *= mul
+            hi ^= hi >> shift
+            lo ^= part_lo
+            lo *= mul
+            lo ^= lo >> shift
+        return _finalise(hi), _finalise(lo)
+
+
+def row_digests(columns: Sequence[Any]) -> tuple[np.ndarray, np.ndarray]:
+    """One digest per row of several string columns: the digest of the cells joined by U+001F.
+
+    An empty (null) cell is written as U+001E, so that an empty cell and an empty text differ. Cells
+    that themselves contain these control characters could make two different rows join to the same
+    text; they do not occur in ordinary data files. One join and one digest of the joined text cost
+    far less than a digest per cell.
+    """
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    if len(columns) == 1:
+        return text_digests(columns[0])
+    strings = [c.cast(pa.large_string()) if not pa.types.is_large_string(c.type) else c for c in columns] \
+        if any(pa.types.is_large_string(c.type) for c in columns) else list(columns)
+    separator = pa.scalar(ROW_SEPARATOR, strings[0].type)
+    options = pc.JoinOptions(null_handling="replace", null_replacement=NULL_CELL)
+    joined = pc.binary_join_element_wise(*strings, separator, options=options)
+    return text_digests(joined)
 
 
 def packed(digest: tuple[np.ndarray, np.ndarray]) -> bytes:
@@ -178,14 +210,22 @@ class SeenDigests:
         repeat = np.zeros(n, dtype=bool)
         if n == 0:
             return repeat
-        order = np.lexsort((lo, hi))  # stable: equal digests keep their row order
+        # stable: equal digests keep their row order, so the first occurrence comes first
+        order = np.argsort(hi, kind="stable")
         sorted_hi, sorted_lo = hi[order], lo[order]
-        same = (sorted_hi[1:] == sorted_hi[:-1]) & (sorted_lo[1:] == sorted_lo[:-1])
-        repeat[order[1:][same]] = True
+        same_hi = sorted_hi[1:] == sorted_hi[:-1]
+        if (same_hi & (sorted_lo[1:] != sorted_lo[:-1])).any():
+            # two digests share their first lane only (about 2^-64 per pair): order by both lanes
+            order = np.lexsort((lo, hi))
+            sorted_hi, sorted_lo = hi[order], lo[order]
+            same_hi = sorted_hi[1:] == sorted_hi[:-1]
+        same = same_hi & (sorted_lo[1:] == sorted_lo[:-1])
+        seen_sorted = np.concatenate([[False], same])
         for run_hi, run_lo in self.runs:
-            repeat |= _member(run_hi, run_lo, hi, lo)
-        first = np.concatenate([[True], ~same])
-        keep = first & ~repeat[order]
+            # needles in sorted order: numpy's binary search narrows from the previous answer
+            seen_sorted |= _member(run_hi, run_lo, sorted_hi, sorted_lo)
+        repeat[order] = seen_sorted
+        keep = ~seen_sorted
         self._add(sorted_hi[keep], sorted_lo[keep])
         return repeat
 
