@@ -429,6 +429,8 @@ class ColumnSummary:
         if self.numeric is not None:
             valid = pc.match_substring_regex(present, NUMBER_PATTERN)
             numbers = pc.cast(pc.filter(present, valid), pa.float64()).to_numpy(zero_copy_only=False)
+            # '1e309' matches the pattern but overflows to inf: not a finite number (the check agrees)
+            numbers = numbers[np.isfinite(numbers)]
             self.invalid += len(present) - len(numbers)
             self.numeric.update(numbers)
         elif self.dates is not None:
