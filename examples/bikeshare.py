@@ -148,7 +148,7 @@ def write_drops(folder: str | Path, seed: int = 2026, members: int = 2000, rides
     feb = _concat(feb, joined)
     # the provider delivered two member records twice, with different satisfaction scores
     twice = joined.iloc[[30, 31]].copy()
-    twice["satisfaction"] = [5, 1]
+    twice["satisfaction"] = np.where(twice["satisfaction"] == 5, 1, 5)
     feb = _concat(feb, twice)
     manifest.plant("members", "level", "district", 7)
     manifest.plant("members", "level", "signup_channel", 9)

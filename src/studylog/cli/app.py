@@ -116,6 +116,8 @@ COMMAND_MODULES = [
     "studylog.cli.report",
     "studylog.cli.rules",
     "studylog.cli.check",
+    "studylog.cli.drops",
+    "studylog.cli.demo",
 ]
 
 

@@ -18,6 +18,13 @@ console = Console(highlight=False)
 err_console = Console(stderr=True, highlight=False, soft_wrap=True)
 
 
+def escape(text: str) -> str:
+    """Text from the store or a file, made safe to print through rich (brackets are not markup)."""
+    from rich.markup import escape as rich_escape
+
+    return rich_escape(text)
+
+
 def to_json_text(document: Any) -> str:
     return json.dumps(document, ensure_ascii=False, indent=2, default=str)
 

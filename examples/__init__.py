@@ -1,0 +1,1 @@
+"""Invented demo scenarios, shipped inside the package as ``studylog.examples``."""
