@@ -163,8 +163,8 @@ def _levels(text: str) -> list[dict[str, object]]:
     return [{"code": code, "label": None, "order": None} for code in text.split(",")]
 
 
-def measure(command: list[str], env: dict[str, str]) -> tuple[float, float]:
-    """Wall seconds and peak RSS (MB) of one child process."""
+def measure(command: list[str], env: dict[str, str]) -> tuple[float, float, float]:
+    """Wall seconds, peak RSS (MB) and CPU seconds (user + system, all threads) of one child process."""
     start = time.perf_counter()
     child = subprocess.Popen(command, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, env=env)
     _, status, usage = os.wait4(child.pid, 0)
@@ -172,13 +172,13 @@ def measure(command: list[str], env: dict[str, str]) -> tuple[float, float]:
     errors = child.stderr.read().decode() if child.stderr else ""
     if os.waitstatus_to_exitcode(status) not in (0,):
         raise SystemExit(f"{' '.join(command)} failed: {errors}")
-    return wall, usage.ru_maxrss / 1024
+    return wall, usage.ru_maxrss / 1024, usage.ru_utime + usage.ru_stime
 
 
 def compare(path: Path, folder: Path, repeat: int) -> dict[str, float]:
     baseline = [sys.executable, "-c", f"import pyarrow.csv; pyarrow.csv.read_csv({str(path)!r})"]
     results: dict[str, float] = {}
-    best: dict[str, tuple[float, float]] = {}
+    best: dict[str, tuple[float, float, float]] = {}
     for attempt in range(repeat):
         store_folder = folder / f"study-{attempt}"
         shutil.rmtree(store_folder, ignore_errors=True)
@@ -186,13 +186,14 @@ def compare(path: Path, folder: Path, repeat: int) -> dict[str, float]:
         env = dict(os.environ, STUDYLOG_STORE=str(store), STUDYLOG_AUTHOR="benchmark", NO_COLOR="1")
         check = [sys.executable, "-m", "studylog", "check", str(path), "--json", "--fail-on", "never"]
         for name, command in (("read_csv", baseline), ("check", check)):
-            wall, peak = measure(command, env)
+            wall, peak, cpu = measure(command, env)
             if name not in best or wall < best[name][0]:
-                best[name] = (wall, max(peak, best.get(name, (0, 0))[1]))
+                best[name] = (wall, max(peak, best.get(name, (0, 0, 0))[1]), cpu)
         shutil.rmtree(store_folder, ignore_errors=True)
-    results["read_csv_s"], results["read_csv_mb"] = best["read_csv"]
-    results["check_s"], results["check_mb"] = best["check"]
+    results["read_csv_s"], results["read_csv_mb"], results["read_csv_cpu"] = best["read_csv"]
+    results["check_s"], results["check_mb"], results["check_cpu"] = best["check"]
     results["time_ratio"] = results["check_s"] / results["read_csv_s"]
+    results["cpu_ratio"] = results["check_cpu"] / results["read_csv_cpu"]
     results["memory_ratio"] = results["check_mb"] / results["read_csv_mb"]
     return results
 
@@ -200,9 +201,13 @@ def compare(path: Path, folder: Path, repeat: int) -> dict[str, float]:
 def report(label: str, rows: int, path: Path, results: dict[str, float]) -> None:
     size = path.stat().st_size / 1e6
     print(f"{label}: {rows:,} rows, {size:,.0f} MB")
-    print(f"  pyarrow.csv.read_csv : {results['read_csv_s']:7.2f} s  {results['read_csv_mb']:8.0f} MB peak")
-    print(f"  studylog check       : {results['check_s']:7.2f} s  {results['check_mb']:8.0f} MB peak")
-    print(f"  ratios (check / read): time {results['time_ratio']:.2f}   memory {results['memory_ratio']:.2f}")
+    for label, key in (("pyarrow.csv.read_csv", "read_csv"), ("studylog check", "check")):
+        print(f"  {label:21}: {results[key + '_s']:7.2f} s wall  {results[key + '_cpu']:7.2f} s cpu  "
+              f"{results[key + '_mb']:8.0f} MB peak")
+    print(f"  ratios (check / read): wall {results['time_ratio']:.2f}   cpu {results['cpu_ratio']:.2f}   "
+          f"memory {results['memory_ratio']:.2f}")
+    print(f"  (load average {os.getloadavg()[0]:.1f} on {os.cpu_count()} CPUs: wall times include waiting "
+          "for a CPU)")
 
 
 def main() -> None:

@@ -90,10 +90,7 @@ def check_file(
     summaries = _summaries(checks)
     passengers = [Passenger(lambda context: _update_summaries(summaries, context))]
     passengers.extend(_more_passengers(session, owner, checks, spec, against))
-    checker = Checker(checks, [p.observe for p in passengers])
-    for batch in source.batches():
-        checker.feed(batch)
-    result = checker.finish()
+    result = Checker(checks, [p.observe for p in passengers]).run(source.batches())
     result.findings.extend(found for p in passengers for found in p.findings())
     profiles = {name: summary.to_dict() for name, summary in summaries.items()}
 

@@ -280,3 +280,26 @@ def test_numbers_agree_with_python_float_when_finite(texts: list[str]) -> None:
         return value if math.isfinite(value) else None
 
     assert parsed.values.to_pylist() == [reference(t.strip()) for t in texts]
+
+
+def test_dates_in_a_declared_format_are_strict_too() -> None:
+    spec = TableSpec("t", variables=(VariableSpec("d", "date", date_format="%d/%m/%Y", maximum="2024-12-31"),))
+    result = run(spec, {"d": ["29/02/2024", "31/02/2024", "1/2/2024", "2024-01-01", "01/01/2025"]})
+    # 31 February does not exist; '1/2/2024' is not written as %d/%m/%Y writes it; ISO is another format
+    assert finding(result, "d", "type").rows == (2, 3, 4)
+    assert finding(result, "d", "range").rows == (5,)
+
+
+def test_digests_do_not_depend_on_the_batch_or_on_long_cells() -> None:
+    from studylog.data.repeats import row_digests, text_digests
+
+    cells = pa.array(["x" * n for n in (0, 1, 7, 8, 9, 63, 64, 65, 200)] + [None], pa.string())
+    whole = text_digests(cells)
+    parts = [text_digests(cells.slice(i, 1)) for i in range(len(cells))]
+    assert [int(h) for h in whole[0]] == [int(p[0][0]) for p in parts]
+    # every text (and the missing cell) gets its own digest
+    assert len(set(zip(whole[0].tolist(), whole[1].tolist()))) == len(cells)
+    a = pa.array(["1", None, ""], pa.string())
+    b = pa.array([None, "1", None], pa.string())
+    rows = row_digests([a, b])
+    assert len(set(rows[0].tolist())) == 3
