@@ -290,3 +290,17 @@ def test_bad_input_is_one_line_exit_2_and_nothing_written(cli, study: Path, args
     before = _snapshot(cli)
     _one_error_line(cli(*args), message)
     assert _snapshot(cli) == before
+
+
+def test_csvw_export_reads_back_through_var_import(cli, study: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:  # type: ignore[no-untyped-def]
+    cli("var", "add", "age", "--type", "integer", "--unit", "years", "--min", "0", "--max", "120")
+    cli("var", "add", "arm", "--type", "categorical", "--levels", "a=control,b=treated")
+    metadata = tmp_path / "data.csv-metadata.json"
+    assert cli("var", "export", "--format", "csvw", "-o", str(metadata)).exit_code == 0
+    assert json.loads(metadata.read_text(encoding="utf-8"))["@context"] == "http://www.w3.org/ns/csvw"
+    monkeypatch.setenv("STUDYLOG_STORE", str(tmp_path / "copy" / "studylog.db"))
+    cli("init")
+    imported = _json(cli("var", "import", str(metadata), "--json"))
+    assert imported["format"] == "csvw" and imported["added"] == 2  # type: ignore[index]
+    age = _json(cli("var", "show", "age", "--json"))
+    assert (age["unit"], age["minimum"], age["maximum"]) == ("years", "0", "120")  # type: ignore[index]
