@@ -36,18 +36,19 @@ class Manifest:
     """What the generator planted in the second drops: findings by table and rule, record changes."""
 
     files: dict[str, Path] = field(default_factory=dict)
-    # {table: {rule: {variable or rule name: offending rows}}}
-    faults: dict[str, dict[str, dict[str, int]]] = field(default_factory=dict)
+    # {table: {rule: {variable: offending rows}}}; the variable is None for row-level rules
+    faults: dict[str, dict[str, dict[str | None, int]]] = field(default_factory=dict)
     records: dict[str, dict[str, int]] = field(default_factory=dict)
     shifted: dict[str, str] = field(default_factory=dict)
 
-    def plant(self, table: str, rule: str, variable: str, count: int) -> None:
+    def plant(self, table: str, rule: str, variable: str | None, count: int) -> None:
         self.faults.setdefault(table, {}).setdefault(rule, {})[variable] = count
 
     def to_dict(self) -> dict[str, Any]:
         return {
             "files": {k: str(v) for k, v in self.files.items()},
-            "faults": self.faults,
+            "faults": {t: {r: {str(v): c for v, c in by.items()} for r, by in rules.items()}
+                       for t, rules in self.faults.items()},
             "records": self.records,
             "shifted": self.shifted,
         }
@@ -58,7 +59,7 @@ def _members(rng, ids, start_day):  # type: ignore[no-untyped-def]
     import pandas as pd
 
     n = len(ids)
-    age = np.clip(np.round(rng.normal(41, 13, n)), 16, 88).astype(int)
+    age = np.clip(np.round(rng.normal(41, 13, n)), 18, 88).astype(int)
     district = rng.choice(DISTRICTS, n, p=_zipf(len(DISTRICTS)))
     channel = rng.choice(CHANNELS, n, p=[0.55, 0.25, 0.12, 0.08])
     joined = pd.Timestamp(start_day) - pd.to_timedelta(rng.integers(30, 1500, n), unit="D")
@@ -176,9 +177,9 @@ def write_drops(folder: str | Path, seed: int = 2026, members: int = 2000, rides
     feb_rides = feb_rides.rename(columns={"distance_km": "distance"})
     manifest.plant("rides", "type", "started_at", 12)
     manifest.plant("rides", "range", "duration_min", 6)
-    manifest.plant("rides", "end-after-start", "ended_at", 6)
+    manifest.plant("rides", "end-after-start", None, 6)
     manifest.plant("rides", "orphan", "member_id", 8)
-    manifest.plant("rides", "repeated-row", "*", 3)
+    manifest.plant("rides", "repeated-row", None, 3)
     manifest.plant("rides", "key", "ride_id", 3)
     manifest.plant("rides", "renamed-column", "distance_km", 1)
     manifest.records["rides"] = {"new": rides, "vanished": rides, "changed": 0}
