@@ -7,6 +7,7 @@ stdout as one document, so that ``--json`` output can be piped into ``jq`` or pa
 from __future__ import annotations
 
 import json
+import os
 import sys
 from collections.abc import Iterable, Sequence
 from typing import Any
@@ -14,7 +15,14 @@ from typing import Any
 from rich.console import Console
 from rich.table import Table
 
-console = Console(highlight=False)
+def _width() -> int | None:
+    """Rich's own width on a terminal; 120 columns when piped (rich would use 80), unless COLUMNS says."""
+    if sys.stdout.isatty() or os.environ.get("COLUMNS"):
+        return None
+    return 120
+
+
+console = Console(highlight=False, width=_width())
 err_console = Console(stderr=True, highlight=False, soft_wrap=True)
 
 
