@@ -56,9 +56,12 @@ ENTITY_MODELS: dict[str, type[Base]] = {
 # actions that replace a field's text on purpose without keeping the old text
 UNCHECKABLE_ACTIONS = frozenset({"redact"})
 
-# a "confirm" change stamps who confirmed and when with its own author and time (the dictionary writes
-# one change for the status, not three)
-STAMPED_BY = {"confirm": ("confirmed_by", "confirmed_at")}
+# changes that also stamp fields with their own author or time, without a change row for each (a
+# "confirm" is one change for the status, and sets who confirmed and when; an answer sets when)
+STAMPS: dict[str, dict[str, str]] = {
+    "confirm": {"confirmed_by": "author", "confirmed_at": "at"},
+    "answer": {"answered_at": "at"},
+}
 
 # the record's own bookkeeping, stamped on every change without a change row of its own
 BOOKKEEPING = frozenset({"id", "updated_at"})
@@ -153,23 +156,22 @@ def replay(changes: list[Change], columns: set[str]) -> tuple[dict[str, Any], li
                     if key in columns and key not in stopped:
                         state[key] = value
             continue
+        if change.action in UNCHECKABLE_ACTIONS:
+            # a redaction may name several fields at once ("text,why")
+            for name in change.field.split(","):
+                stopped.add(name.strip())
+                state.pop(name.strip(), None)
+            continue
         name = change.field
         if name not in columns or name in stopped:
-            continue
-        if change.action in UNCHECKABLE_ACTIONS:
-            stopped.add(name)
-            state.pop(name, None)
             continue
         if name in state and not same(state[name], change.old):
             breaks.append({"change": change.id, "field": name,
                            "expected_old": _shown(state[name]), "old": _shown(change.old)})
         state[name] = change.new
-        stamps = STAMPED_BY.get(change.action)
-        if stamps is not None:
-            who, when = stamps
-            for stamp, value in ((who, change.author), (when, change.at)):
-                if stamp in columns and stamp not in stopped:
-                    state[stamp] = value
+        for stamp, source in STAMPS.get(change.action, {}).items():
+            if stamp in columns and stamp not in stopped:
+                state[stamp] = change.author if source == "author" else change.at
     return state, breaks
 
 
