@@ -75,7 +75,7 @@ def _new_study(folder: Path) -> Any:
     return location
 
 
-@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(st.lists(st.tuples(names, st.sampled_from(["data", "visits"]), entries()), max_size=6,
                 unique_by=lambda t: (t[1], t[0])))
 def test_export_import_export_is_byte_identical(variables: list[tuple[str, str, dict[str, Any]]]) -> None:
