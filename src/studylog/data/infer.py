@@ -335,14 +335,14 @@ def _as_integer(proposal: Proposal, rest: _Values) -> bool:
     low, high = pc.min_max(numbers).values()
     proposal.minimum, proposal.maximum = str(low.as_py()), str(high.as_py())
     distinct = len(good.values)
-    if (distinct >= 3 and low.as_py() in RATING_LOW and high.as_py() in RATING_HIGH):
+    if distinct == good.total and good.total >= 2 and _id_name(proposal.name):
+        proposal.type = "identifier"
+        proposal.evidence.notes.append("every value is distinct and the name reads like an identifier")
+    elif distinct >= 3 and low.as_py() in RATING_LOW and high.as_py() in RATING_HIGH:
         proposal.type = "ordinal"
         proposal.levels = [{"code": str(v), "label": None, "order": i}
                            for i, v in enumerate(range(low.as_py(), high.as_py() + 1), start=1)]
         proposal.evidence.notes.append(f"whole numbers on a {low.as_py()}-{high.as_py()} rating scale")
-    elif distinct == good.total and good.total >= 2 and _id_name(proposal.name):
-        proposal.type = "identifier"
-        proposal.evidence.notes.append("every value is distinct and the name reads like an identifier")
     return True
 
 
@@ -570,8 +570,10 @@ def find_key(table: pa.Table, proposals: list[Proposal]) -> tuple[list[str], str
         return None
     complete = [p for p in proposals if p.evidence.empty == 0 and not p.missing_codes and p.type in KEY_TYPES]
 
+    position = {id(p): i for i, p in enumerate(proposals)}
+
     def preference(p: Proposal) -> tuple[int, int]:
-        return (0 if p.type == "identifier" else 1 if _id_name(p.name) else 2, proposals.index(p))
+        return (0 if p.type == "identifier" else 1 if _id_name(p.name) else 2, position[id(p)])
 
     complete.sort(key=preference)
     distinct = {p.name: pc.count_distinct(table.column(p.name)).as_py() for p in complete}

@@ -314,6 +314,9 @@ def _open_csv(
     if ascii_family and not body.strip():
         what = "holds only a byte-order mark" if raw.startswith(UTF8_BOM) and not raw[3:] else "holds no text"
         raise InputFileError(str(path), f"the file {what}")
+    if encoding is None and raw.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)):
+        raise InputFileError(str(path), "this is UTF-16 text (it starts with its byte-order mark); "
+                             "pass --encoding utf-16")
     if ascii_family:
         for signature, what in _SIGNATURES:
             if raw.startswith(signature):
@@ -468,6 +471,9 @@ def _translate_csv_error(source: Source, message: str) -> InputFileError:
             f"row has {actual} value{'s' if actual != 1 else ''} but the header has {expected} (ragged rows)",
             _physical_line_of_row(source, number),
         )
+    if "Empty CSV file" in message:
+        # pyarrow's word for a single line without an end of line: a header and nothing else
+        return InputFileError(path, "no data rows (the file holds a header only)")
     if "UTF8" in message or "UTF-8" in message or "decode" in message.lower():
         found = _first_undecodable(source.path, source.encoding)
         if found is not None:
