@@ -86,22 +86,22 @@ def generate(path: Path, rows: int, seed: int = SEED) -> None:
     csv.write_csv(pa.table(columns), str(path))
 
 
-def measure(command: list[str]) -> tuple[float, int]:
-    """Wall seconds and peak RSS (bytes) of ``command`` run as its own process, measured by a small
+def measure(command: list[str]) -> tuple[float, int, float]:
+    """Wall seconds, peak RSS (bytes) and CPU seconds (user + system) of ``command`` run as its own process, measured by a small
     wrapper process so that the RSS is that command's alone."""
     wrapper = (
         "import resource, subprocess, sys, time\n"
         "start = time.perf_counter()\n"
         "code = subprocess.call(sys.argv[1:], stdout=subprocess.DEVNULL)\n"
         "elapsed = time.perf_counter() - start\n"
-        "peak = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss\n"
-        "print(elapsed, peak * 1024, code)\n"
+        "usage = resource.getrusage(resource.RUSAGE_CHILDREN)\n"
+        "print(elapsed, usage.ru_maxrss * 1024, usage.ru_utime + usage.ru_stime, code)\n"
     )
     out = subprocess.run([sys.executable, "-c", wrapper, *command], capture_output=True, text=True, check=True)
-    elapsed, peak, code = out.stdout.split()
+    elapsed, peak, cpu, code = out.stdout.split()
     if code != "0":
         raise SystemExit(f"{' '.join(command)} exited {code}")
-    return float(elapsed), int(peak)
+    return float(elapsed), int(peak), float(cpu)
 
 
 def main() -> None:
@@ -123,14 +123,14 @@ def main() -> None:
     results = {}
     for label, command in (("pyarrow.csv.read_csv", baseline), ("studylog profile", studylog)):
         runs = [measure(command) for _ in range(args.repeat)]
-        results[label] = (min(r[0] for r in runs), min(r[1] for r in runs))
-    base_time, base_rss = results["pyarrow.csv.read_csv"]
-    for label, (seconds, rss) in results.items():
-        print(f"{label:22s} {seconds:7.2f} s  peak RSS {rss / 2**20:7.0f} MiB")
-    time_ratio = results["studylog profile"][0] / base_time
-    rss_ratio = results["studylog profile"][1] / base_rss
-    print(f"time ratio {time_ratio:.2f} (goal <= 3); peak memory ratio {rss_ratio:.2f} "
-          f"(goal <= 2: one copy of the data beyond the Arrow table)")
+        results[label] = tuple(min(r[k] for r in runs) for k in range(3))
+    base_time, base_rss, base_cpu = results["pyarrow.csv.read_csv"]
+    for label, (seconds, rss, cpu) in results.items():
+        print(f"{label:22s} wall {seconds:7.2f} s  cpu {cpu:7.2f} s  peak RSS {rss / 2**20:7.0f} MiB")
+    seconds, rss, cpu = results["studylog profile"]
+    print(f"wall-time ratio {seconds / base_time:.2f} (goal <= 3); cpu-time ratio {cpu / base_cpu:.2f}; "
+          f"peak memory ratio {rss / base_rss:.2f} (goal <= 2: one copy of the data beyond the Arrow table)")
+    print(f"load average during the run: {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores")
 
 
 if __name__ == "__main__":

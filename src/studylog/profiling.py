@@ -20,6 +20,7 @@ from studylog.store.session import StoreLocation
 # types are inferred from at most this many rows, spread evenly over the file (the profile itself reads
 # every row, and reports values that do not fit the inferred type as invalid)
 INFERENCE_ROWS = 100_000
+SAMPLE_STRETCHES = 20
 # the share of a file's columns that must be variables of the study's only table to use it unasked
 MATCH_SHARE = 0.5
 
@@ -105,7 +106,10 @@ def inferred_specs(data: Any, names: Sequence[str]) -> dict[str, tuple[VariableS
         return found
     sample = data.select(list(names))
     if sample.num_rows > INFERENCE_ROWS:
-        sample = sample.take(pa.array(np.linspace(0, sample.num_rows - 1, INFERENCE_ROWS).astype(np.int64)))
+        # SAMPLE_STRETCHES slices spread over the file: slicing copies nothing, taking rows would
+        length = INFERENCE_ROWS // SAMPLE_STRETCHES
+        starts = np.linspace(0, sample.num_rows - length, SAMPLE_STRETCHES).astype(np.int64)
+        sample = pa.concat_tables([sample.slice(int(start), length) for start in starts])
     for name in names:
         proposal = infer_column(name, sample.column(name), sample.num_rows)
         levels = tuple(Code(str(level["code"]), level.get("label"), level.get("order"))

@@ -19,7 +19,7 @@ Definitions (DESIGN.md, "Statistical definitions"):
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -32,23 +32,46 @@ MAX_NUMERIC_COLUMNS = 50
 MAX_PAIR_LEVELS = 50
 DEFAULT_STRONG = 0.9
 INTEGER_COUNTING_SPAN = 1 << 22
-BLOCK_ROWS = 1 << 16
+
+
+def _dot(a: np.ndarray, b: np.ndarray) -> float:
+    """Inner product in numpy's own loop: BLAS may start threads of its own, which compete with ours
+    (columns and pairs already run in parallel) for a small vector operation."""
+    return float(np.einsum("i,i->", a, b))
 
 
 @dataclass
 class RankBase:
-    """One sort of a numeric column: its values sorted, and each row's tie group in value order."""
+    """One sort of a numeric column: its values sorted, each row's tie group in value order, and the
+    values shifted by their mean with 0 where missing (for sums over any pair's complete cases)."""
 
-    values: np.ndarray  # float64, NaN where missing
     valid: np.ndarray  # bool
     sorted_values: np.ndarray
     group_row: np.ndarray  # tie-group number of each row (0 where missing; never read there)
     groups: int
+    centre: float = 0.0
+    centred: np.ndarray = field(default_factory=lambda: np.zeros(0))  # x - centre, 0 where missing
+    missing_rows: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+    total: float = 0.0  # sum of centred values
+    total_squares: float = 0.0
+
+    def finish(self) -> RankBase:
+        self.centre = float(self.sorted_values.mean()) if self.sorted_values.size else 0.0
+        self.centred -= self.centre
+        self.centred[~self.valid] = 0.0
+        self.missing_rows = np.flatnonzero(~self.valid)
+        self.total = float(self.centred.sum())
+        self.total_squares = _dot(self.centred, self.centred)
+        return self
 
     @classmethod
-    def of(cls, values: np.ndarray, integer: bool = False) -> RankBase:
+    def of(cls, values: np.ndarray, integer: bool = False, *, reuse: bool = False) -> RankBase:
         """One sort; whole numbers spanning fewer than 2^22 values are counted instead of sorted (a
-        tie group per possible value, empty groups included: ranks are unchanged by empty groups)."""
+        tie group per possible value, empty groups included: ranks are unchanged by empty groups).
+        ``values``: NaN where missing; with ``reuse`` the array itself becomes ``centred`` (no copy).
+        """
+        if not reuse:
+            values = values.copy()
         valid = ~np.isnan(values)
         rows = np.flatnonzero(valid)
         present = values[rows]
@@ -60,8 +83,8 @@ class RankBase:
             sorted_values = np.repeat(low + seen.astype(np.float64), counts[seen])
             group_row = np.zeros(values.size, dtype=np.int64)
             group_row[rows] = offsets
-            return cls(values, valid, sorted_values, group_row, int(counts.size))
-        order = np.argsort(present, kind="stable")
+            return cls(valid, sorted_values, group_row, int(counts.size), centred=values).finish()
+        order = np.argsort(present)  # tie order is irrelevant: ties share a group
         sorted_values = present[order]
         starts = np.empty(sorted_values.size, dtype=bool)
         starts[:1] = True
@@ -70,7 +93,7 @@ class RankBase:
         group_row = np.zeros(values.size, dtype=np.int64)
         group_row[rows[order]] = group_sorted
         groups = int(group_sorted[-1]) + 1 if group_sorted.size else 0
-        return cls(values, valid, sorted_values, group_row, groups)
+        return cls(valid, sorted_values, group_row, groups, centred=values).finish()
 
     def ranks(self, rows: np.ndarray) -> tuple[np.ndarray, float]:
         """Average ranks (1..len(rows)) of the values at ``rows`` among those rows only, and
@@ -89,61 +112,57 @@ class RankBase:
     def rank_sums(self, rows: np.ndarray) -> tuple[np.ndarray, float]:
         """Ranks on ``rows`` and the sum of their squares (from the groups, not the rows)."""
         ranks, counts, average = self._ranks(rows)
-        return ranks, float(counts @ (average * average))
+        return ranks, float((counts * (average * average)).sum())
 
 
 def pearson(x: np.ndarray, y: np.ndarray) -> float | None:
     """Pearson's r (None when either variable is constant)."""
     dx = x - x.mean()
     dy = y - y.mean()
-    sxx = float(dx @ dx)
-    syy = float(dy @ dy)
+    sxx = _dot(dx, dx)
+    syy = _dot(dy, dy)
     if sxx == 0.0 or syy == 0.0:
         return None
-    return max(-1.0, min(1.0, float(dx @ dy) / math.sqrt(sxx * syy)))
+    return max(-1.0, min(1.0, _dot(dx, dy) / math.sqrt(sxx * syy)))
+
+
+def pearson_pair(x: RankBase, y: RankBase) -> tuple[float | None, int]:
+    """Pearson's r on the pair's complete cases, and their number.
+
+    Sums over the complete cases are the column's sums less those over the rows where the other
+    variable is missing (few, usually): with centred values c (0 where missing),
+    Sx = sum(c_x) - sum(c_x[y missing]), Sxx likewise, Sxy = c_x . c_y (zeros drop out), n likewise;
+    r = (Sxy - Sx Sy / n) / sqrt((Sxx - Sx^2 / n)(Syy - Sy^2 / n)). Centring by each column's mean
+    keeps these differences of sums well conditioned.
+    """
+    n = int(np.count_nonzero(x.valid & y.valid))
+    if n < 2:
+        return None, n
+    x_out = x.centred[y.missing_rows]
+    y_out = y.centred[x.missing_rows]
+    sx = x.total - float(x_out.sum())
+    sy = y.total - float(y_out.sum())
+    sxx = x.total_squares - _dot(x_out, x_out)
+    syy = y.total_squares - _dot(y_out, y_out)
+    sxy = _dot(x.centred, y.centred)
+    var_x, var_y = sxx - sx * sx / n, syy - sy * sy / n
+    # a variable constant on the pair's cases leaves only rounding error in its sum of squares
+    if var_x <= 1e-12 * max(sxx, 1e-300) or var_y <= 1e-12 * max(syy, 1e-300):
+        return None, n
+    return max(-1.0, min(1.0, (sxy - sx * sy / n) / math.sqrt(var_x * var_y))), n
 
 
 def pearson_matrix(bases: Sequence[RankBase]) -> tuple[np.ndarray, np.ndarray]:
-    """Pearson's r of every pair on its complete cases, and the pair counts, in one pass over the rows.
-
-    Sums over each pair's complete cases come from matrix products of the values (shifted by each
-    column's mean, 0 where missing) and the validity indicators, block by block:
-    n_ij = V_i.V_j, Sx_ij = X_i.V_j, Sxx_ij = X_i^2.V_j, Sxy_ij = X_i.X_j; then
-    r = (Sxy - Sx Sy / n) / sqrt((Sxx - Sx^2 / n)(Syy - Sy^2 / n)). Shifting by the mean keeps the
-    differences of sums well conditioned. r is NaN where a variable is constant on the pair's cases.
-    """
+    """Pearson's r of every pair (NaN where undefined) and the pair counts, as matrices."""
     p = len(bases)
-    rows = bases[0].values.size if p else 0
-    centre = np.array([b.sorted_values.mean() if b.sorted_values.size else 0.0 for b in bases])
-    xx = np.zeros((p, p))
-    xv = np.zeros((p, p))
-    x2v = np.zeros((p, p))
-    vv = np.zeros((p, p))
-    for start in range(0, rows, BLOCK_ROWS):
-        stop = min(rows, start + BLOCK_ROWS)
-        block = np.empty((stop - start, p))
-        for j, base in enumerate(bases):
-            block[:, j] = base.values[start:stop]
-        block -= centre
-        valid = ~np.isnan(block)
-        block[~valid] = 0.0
-        v = valid.astype(np.float64)
-        xx += block.T @ block
-        xv += block.T @ v
-        x2v += (block * block).T @ v
-        vv += v.T @ v
-    n = vv
-    with np.errstate(divide="ignore", invalid="ignore"):
-        sx = xv
-        sy = xv.T
-        cov = xx - sx * sy / n
-        var_x = x2v - sx * sx / n
-        var_y = x2v.T - sy * sy / n
-        # a variable constant on the pair's cases leaves only rounding error in its sum of squares
-        flat = (var_x <= 1e-12 * np.maximum(x2v, 1e-300)) | (var_y <= 1e-12 * np.maximum(x2v.T, 1e-300))
-        r = cov / np.sqrt(var_x * var_y)
-    r[flat | (n < 2)] = np.nan
-    return np.clip(r, -1.0, 1.0), n.astype(np.int64)
+    r = np.full((p, p), np.nan)
+    counts = np.zeros((p, p), dtype=np.int64)
+    for i in range(p):
+        for j in range(i + 1, p):
+            value, n = pearson_pair(bases[i], bases[j])
+            counts[i, j] = counts[j, i] = n
+            r[i, j] = r[j, i] = np.nan if value is None else value
+    return r, counts
 
 
 def spearman(x: RankBase, y: RankBase, rows: np.ndarray) -> float | None:
@@ -156,7 +175,7 @@ def spearman(x: RankBase, y: RankBase, rows: np.ndarray) -> float | None:
     var_x, var_y = sxx - mean_square, syy - mean_square
     if var_x <= 1e-9 * sxx or var_y <= 1e-9 * syy:
         return None
-    return max(-1.0, min(1.0, (float(rx @ ry) - mean_square) / math.sqrt(var_x * var_y)))
+    return max(-1.0, min(1.0, (_dot(rx, ry) - mean_square) / math.sqrt(var_x * var_y)))
 
 
 def compact_groups(codes: np.ndarray, levels: int) -> tuple[np.ndarray, int]:
@@ -175,21 +194,25 @@ class NumericColumn:
     is_input: bool = True
 
 
-def correlations(columns: Sequence[NumericColumn], strong: float = DEFAULT_STRONG) -> dict[str, Any]:
-    """Every pair of numeric columns (the first 50): r, rho, n, strong, and which one to consider."""
+def correlations(columns: Sequence[NumericColumn], strong: float = DEFAULT_STRONG,
+                 mapper: Callable[..., Iterable[Any]] = map) -> dict[str, Any]:
+    """Every pair of numeric columns (the first 50): r, rho, n, strong, and which one to consider.
+    ``mapper`` (e.g. a thread pool's map) computes the pairs' Spearman coefficients."""
     used = list(columns[:MAX_NUMERIC_COLUMNS])
     pairs: list[dict[str, Any]] = []
-    r, counts = pearson_matrix([c.base for c in used])
-    for i, a in enumerate(used):
-        for j in range(i + 1, len(used)):
-            b = used[j]
-            n = int(counts[i, j])
-            entry: dict[str, Any] = {"a": a.name, "b": b.name, "pearson": None, "spearman": None,
-                                     "n": n, "strong": False}
-            if n >= MIN_PAIR_CASES:
-                entry["pearson"] = None if np.isnan(r[i, j]) else float(r[i, j])
-                entry["spearman"] = spearman(a.base, b.base, np.flatnonzero(a.base.valid & b.base.valid))
-            pairs.append(entry)
+    jobs = [(a, b) for i, a in enumerate(used) for b in used[i + 1:]]
+
+    def measure(job: tuple[NumericColumn, NumericColumn]) -> dict[str, Any]:
+        a, b = job
+        r, n = pearson_pair(a.base, b.base)
+        entry: dict[str, Any] = {"a": a.name, "b": b.name, "pearson": None, "spearman": None, "n": n,
+                                 "strong": False}
+        if n >= MIN_PAIR_CASES:
+            entry["pearson"] = r
+            entry["spearman"] = spearman(a.base, b.base, np.flatnonzero(a.base.valid & b.base.valid))
+        return entry
+
+    pairs.extend(mapper(measure, jobs))
     # mean absolute correlation of each input with the other inputs: the tie-breaker for strong pairs
     inputs = {c.name for c in used if c.is_input}
     absolute: dict[str, list[float]] = {name: [] for name in inputs}
@@ -267,7 +290,7 @@ def group_comparisons(by: LevelColumn, numeric: Sequence[NumericColumn]) -> dict
         if rows.size >= 3:
             groups, k = compact_groups(by.codes[rows], by.levels)
             entry["groups"] = k
-            entry["anova"] = significance.anova(groups, column.base.values[rows], k)
+            entry["anova"] = significance.anova(groups, column.base.centred[rows], k)
             ranks, tie_sum = column.base.ranks(rows)
             entry["kruskal_wallis"] = significance.kruskal_wallis(groups, ranks, k, tie_sum)
         results.append(entry)

@@ -11,7 +11,9 @@ Pure computation: no store, no printing. Definitions: see :mod:`studylog.data.un
 from __future__ import annotations
 
 import math
+import os
 from collections.abc import Mapping, Sequence
+from concurrent.futures import ThreadPoolExecutor
 from typing import Any
 
 import numpy as np
@@ -24,6 +26,11 @@ from studylog.errors import UsageError
 CLASS_LIKE_MAX_DISTINCT = 10  # a numeric target with this few values also gets class counts
 LEAKAGE_STRENGTH = 0.9
 MAX_GROUPS = 50
+
+
+def workers() -> ThreadPoolExecutor:
+    """Threads for independent columns and pairs (at most 4: the work is bound by memory bandwidth)."""
+    return ThreadPoolExecutor(max_workers=max(1, min(4, os.cpu_count() or 1)))
 
 
 def _number(text: str | None) -> float | None:
@@ -84,7 +91,7 @@ def _profile_column(name: str, strings: pa.ChunkedArray, spec: VariableSpec,
             fractional = np.isfinite(values) & (values != np.floor(values))
             invalid |= fractional
             values[fractional] = np.nan
-        column.base = pairs.RankBase.of(values, integer=kind == "integer")
+        column.base = pairs.RankBase.of(values, integer=kind == "integer", reuse=True)
         entry.update(univariate.numeric_summary(column.base.sorted_values, kind == "integer"))
         entry["invalid"] = int(invalid.sum())
         entry["invalid_examples"] = univariate.invalid_examples(strings, invalid, masked)
@@ -193,7 +200,7 @@ def _leakage(columns: Sequence[_Column], target: _Column, target_levels: pairs.L
             rows = np.flatnonzero(column.base.valid & (target_levels.codes >= 0))
             if rows.size >= pairs.MIN_PAIR_CASES:
                 groups, k = pairs.compact_groups(target_levels.codes[rows], target_levels.levels)
-                result = significance.anova(groups, column.base.values[rows], k)
+                result = significance.anova(groups, column.base.centred[rows], k)
                 measure, value = "eta_squared", (result["eta_squared"] if result else None)
         elif target_levels is not None and column.levels is not None:
             result = pairs.associations([column.levels, target_levels])
@@ -226,18 +233,22 @@ def profile_table(
     if not 0 < strong <= 1:
         raise UsageError(f"--strong {strong}: must be above 0 and at most 1")
     inferred_missing = inferred_missing or {}
-    columns = [
-        _profile_column(name, table.column(name), specs.get(name) or VariableSpec(name=name, type="text"),
-                        inferred_missing.get(name, ()))
-        for name in names
-    ]
+    # columns are independent and numpy/Arrow release the GIL in their loops: a thread per core
+    with workers() as pool:
+        columns = list(pool.map(
+            lambda name: _profile_column(name, table.column(name),
+                                         specs.get(name) or VariableSpec(name=name, type="text"),
+                                         inferred_missing.get(name, ())),
+            names,
+        ))
     by_name = {c.name: c for c in columns}
     numeric = [
         pairs.NumericColumn(c.name, c.base, c.entry["missing"],
                             is_input=c.name != target and c.spec.role not in ("target", "identifier", "excluded"))
         for c in columns if c.base is not None and c.spec.role not in ("identifier", "excluded")
     ]
-    correlation = pairs.correlations(numeric, strong)
+    with workers() as pool:
+        correlation = pairs.correlations(numeric, strong, pool.map)
     level_columns = [c.levels for c in columns if c.levels is not None and c.spec.role not in ("identifier", "excluded")]
     document: dict[str, Any] = {
         "rows": table.num_rows,

@@ -31,13 +31,17 @@ def _chi2_sf(statistic: float, df: float) -> float:
 
 def dagostino_pearson(values: np.ndarray) -> tuple[float, float]:
     """K^2 and its p-value (n >= 20 advised; used here above 5000 values)."""
-    n = float(values.size)
     mean = values.mean()
     d = values - mean
     d2 = d * d
     m2 = d2.mean()
-    b1 = (d2 * d).mean() / m2**1.5  # biased skewness g1
-    b2 = (d2 * d2).mean() / m2**2  # biased kurtosis (not excess)
+    # biased skewness g1 and biased (not excess) kurtosis b2
+    return dagostino_pearson_from_moments(values.size, (d2 * d).mean() / m2**1.5, (d2 * d2).mean() / m2**2)
+
+
+def dagostino_pearson_from_moments(count: int, b1: float, b2: float) -> tuple[float, float]:
+    """K^2 and its p-value from n, the biased skewness g1 and the biased kurtosis b2 = m4 / m2^2."""
+    n = float(count)
     # skewness test
     y = b1 * math.sqrt(((n + 1) * (n + 3)) / (6.0 * (n - 2)))
     beta2 = (3.0 * (n * n + 27 * n - 70) * (n + 1) * (n + 3)) / ((n - 2) * (n + 5) * (n + 7) * (n + 9))

@@ -187,8 +187,12 @@ def near_zero_variance(counts: np.ndarray, present: int) -> dict[str, Any]:
         # one value only: zero variance, the ratio is unbounded
         out["near_zero_variance"] = True
         return out
-    top_two = np.partition(counts, distinct - 2)[-2:]
-    ratio = float(top_two[1]) / float(top_two[0])
+    first = int(np.argmax(counts))
+    top = int(counts[first])
+    second = max(int(counts[:first].max()) if first else 0,
+                 int(counts[first + 1:].max()) if first + 1 < distinct else 0)
+    top_two = (second, top)
+    ratio = float(top) / float(second)
     out["frequency_ratio"] = ratio
     out["near_zero_variance"] = bool(ratio > NZV_FREQUENCY_RATIO and distinct / present < NZV_DISTINCT_SHARE)
     if distinct == 2:
@@ -200,7 +204,7 @@ def near_zero_variance(counts: np.ndarray, present: int) -> dict[str, Any]:
 
 def normality(values: np.ndarray, skewness: float | None, kurtosis: float | None) -> dict[str, Any] | None:
     """Shapiro-Wilk for 3 <= n <= 5000, D'Agostino-Pearson above; None below 3 or for constant data."""
-    from studylog.data.significance import dagostino_pearson
+    from studylog.data.significance import dagostino_pearson_from_moments
 
     n = values.size
     if n < 3 or skewness is None:
@@ -211,7 +215,10 @@ def normality(values: np.ndarray, skewness: float | None, kurtosis: float | None
         statistic, p_value = stats.shapiro(values)
         test = "shapiro-wilk"
     else:
-        statistic, p_value = dagostino_pearson(values)
+        # the biased moments back from G1 and G2 (exact algebra, no second pass over the values)
+        g1 = skewness * (n - 2) / math.sqrt(n * (n - 1))
+        g2 = ((kurtosis or 0.0) * (n - 2) * (n - 3) / (n - 1) - 6.0) / (n + 1)
+        statistic, p_value = dagostino_pearson_from_moments(n, g1, g2 + 3.0)
         test = "dagostino-pearson"
     result: dict[str, Any] = {
         "test": test, "statistic": float(statistic), "p_value": float(p_value), "n": int(n),
@@ -246,7 +253,7 @@ def _as_bool(array: pa.ChunkedArray | pa.Array) -> np.ndarray:
 def find_missing(strings: pa.ChunkedArray, codes: Sequence[str]) -> Missing:
     """Missing cells: null (empty in the file), whitespace only, or equal to one of ``codes``."""
     null = _as_bool(pc.is_null(strings))
-    blank = _as_bool(pc.utf8_is_space(strings)) | _as_bool(pc.equal(strings, ""))
+    blank = _as_bool(pc.utf8_is_space(strings)) | _as_bool(pc.equal(pc.binary_length(strings), 0))
     mask = null | blank
     counted = []
     for code in codes:
