@@ -1,23 +1,25 @@
 """Drops over time: a checked drop compared with its earlier drop, from the store alone.
 
-How the check pipeline (``studylog.drops``) plugs it in — three calls around the one pass over the file::
+How the check pipeline (``studylog.drops``) plugs it in, around the one pass over the file::
 
     from studylog import comparison
-    tracker = comparison.start(session, table, spec, columns, against=against_id)  # before the pass
-    # per batch (a Checker observer; it reuses the check's cached cell digests):
-    checker = Checker(plan, observers=[..., tracker.observe])     # or tracker.update(batch)
-    ...
-    outcome = tracker.finish(session, drop, profiles)              # after the pass
-    # outcome.findings: orphan / info findings (data.check.Finding) to add to the check's findings
-    # outcome.drift, outcome.records: the check JSON's "drift" and "records" (records None: no key)
+    tracker = comparison.start(session, table, spec, columns, against=against_id,
+                               bindings={variable: file_column, ...})      # before the pass
+    checker = Checker(plan, observers=[..., tracker.observe])  # per batch; reuses the check's cell digests
+    result = checker.finish()
+    result.findings.extend(tracker.findings())     # orphan / info findings, before errors are counted
+    ...                                            # the drop row is stored (or not: --no-record)
+    tracker.store(session, drop, outcome)          # drop None with --no-record
 
 ``start`` resolves the earlier drop (the one named by ``--against``, else the latest recorded drop of the
 same table) and loads what the foreign keys need (the key digests of each referenced table's latest
-recorded drop). ``finish(session, drop, profiles)`` with ``drop`` the new ``Drop`` row (flushed, so it
-has an id) stores the drop's record digests in ``digest_chunks``, ``drop.comparison`` =
-``{"drift": [...], "records": {...}}`` and ``drop.against_id``; with ``drop=None`` (``--no-record``)
-it compares without storing anything. ``profiles`` maps variable name to stored profile dict
-(``ColumnSummary.to_dict()``). The earlier drop's file is never re-read.
+recorded drop). ``store`` (or ``finish``) stores the drop's record digests in ``digest_chunks``,
+``drop.comparison`` = ``{"drift": [...], "records": {...}}`` ("records" only when the table has a key)
+and ``drop.against_id``; with ``drop=None`` it compares without storing anything. In both cases it
+puts "drift" and "records" into ``outcome.document`` (the check JSON) and, for a drop marked as the
+analysed data set, takes the mark off the table's other drops. Columns are known by their variable's
+name (``bindings``), so a column delivered under an alias compares with its earlier self. The earlier
+drop's file is never re-read.
 
 Also here: the drop history used by ``studylog drops``, ``drop show``, ``drift`` and ``status``, and
 :func:`mark_analysed` (``check --analysis``: one drop per table carries the mark; marking another
@@ -109,10 +111,13 @@ class Tracker:
     """Everything a drop is compared on, gathered during the check's one pass."""
 
     def __init__(self, table: DataTable, spec: TableSpec, columns: list[str],
-                 earlier: Drop | None) -> None:
+                 earlier: Drop | None, bindings: dict[str, str] | None = None) -> None:
         self.table = table
         self.spec = spec
-        self.columns = list(columns)
+        # file column -> the name it is compared under (its variable's name where it is bound)
+        self.names = {column: variable for variable, column in (bindings or {}).items()}
+        self.file_columns = list(columns)
+        self.columns = [self.names.get(c, c) for c in columns]
         self.earlier = earlier
         self.digester: RecordDigester | None = None
         self.orphans: list[tuple[str, OrphanCheck, Drop, DataTable]] = []
@@ -121,19 +126,35 @@ class Tracker:
 
     def observe(self, context: BatchContext) -> None:
         """A Checker observer: digest the batch, reusing the check's cell digests."""
-        self.update(context.batch, column_digest=context.digest)
+        files = {self.names.get(c, c): c for c in self.file_columns}
+        self.update(context.batch, column_digest=lambda name: context.digest(files.get(name, name)))
 
     def update(self, batch: Any, column_digest: Any = None) -> None:
+        if self.names:
+            batch = batch.rename_columns([self.names.get(c, c) for c in batch.schema.names])
         if self.digester is not None:
             self.digester.update(batch, column_digest)
         for _, orphan_check, _, _ in self.orphans:
             orphan_check.update(batch)
 
+    def findings(self) -> list[CheckFinding]:
+        """Orphan findings (errors) and notes (info) about foreign keys, once the pass is over."""
+        return list(self.notes) + self._orphan_findings()
+
+    def store(self, session: Session, drop: Drop | None, outcome: Any) -> None:
+        """``finish`` for the check pipeline: also fills the check JSON and moves the analysed mark."""
+        done = self.finish(session, drop, outcome.profiles)
+        outcome.document["drift"] = done.drift
+        if done.records is not None:
+            outcome.document["records"] = done.records
+        if drop is not None and drop.analysis:
+            mark_analysed(session, drop)
+
     def finish(self, session: Session, drop: Drop | None,
                profiles: dict[str, dict[str, Any]]) -> Outcome:
         from studylog.data import drift
 
-        outcome = Outcome(findings=list(self.notes) + self._orphan_findings())
+        outcome = Outcome(findings=self.findings())
         later = self.digester.finish() if self.digester is not None else None
         if self.earlier is not None:
             outcome.against_id = self.earlier.id
@@ -146,7 +167,8 @@ class Tracker:
                 for kind, seq, data in later.to_chunks():
                     session.add(DigestChunk(drop_id=drop.id, seq=seq, kind=kind, data=data))
             drop.against_id = outcome.against_id
-            drop.comparison = {"drift": outcome.drift, "records": outcome.records}
+            drop.comparison = {"drift": outcome.drift} | (
+                {"records": outcome.records} if outcome.records is not None else {})
         return outcome
 
     def _records(self, session: Session, later: Records) -> dict[str, Any]:
@@ -159,6 +181,9 @@ class Tracker:
         if earlier.rows == 0 and self.earlier.rows > 0:
             return {"against": self.earlier.id, "new": None, "vanished": None, "changed": None,
                     "note": f"drop {self.earlier.id} has no record digests (the table had no key then)"}
+        if earlier.key != later.key:
+            return {"against": self.earlier.id, "new": None, "vanished": None, "changed": None,
+                    "note": f"the key changed from {', '.join(earlier.key)} to {', '.join(later.key)}"}
         result = compare_records(earlier, later)
         return records_dict(self.earlier.id, result, earlier, later)
 
@@ -172,7 +197,8 @@ class Tracker:
             found.append(CheckFinding(
                 variable=variable, rule="orphan", severity="error", count=check.count,
                 rows=tuple(check.rows), keys=tuple(check.keys), values=tuple(check.values),
-                message=(f"{check.count} rows of {variable} match no key of table '{parent.name}' "
+                message=(f"{check.count} row{'' if check.count == 1 else 's'} of {variable} match no key "
+                         f"of table '{parent.name}' "
                          f"in its latest drop ({parent_drop.id}, {parent_drop.file_name})"),
             ))
         return found
@@ -191,14 +217,17 @@ def records_dict(against: int, result: Any, earlier: Records, later: Records) ->
 
 
 def start(session: Session, table: DataTable, spec: TableSpec, columns: list[str], *,
-          against: int | None = None, exclude: int | None = None) -> Tracker:
+          against: int | None = None, exclude: int | None = None,
+          bindings: dict[str, str] | None = None) -> Tracker:
     """Prepare the comparison of a drop of ``table`` about to be checked (before the pass).
 
+    ``columns``: the file's columns; ``bindings``: variable name -> the file column holding it;
     ``exclude``: the id of the new drop, if it is already in the session (it is not its own earlier drop).
     """
     from studylog.data.digests import RecordDigester
 
-    tracker = Tracker(table, spec, columns, earlier_drop(session, table, against, exclude=exclude))
+    tracker = Tracker(table, spec, columns, earlier_drop(session, table, against, exclude=exclude),
+                      bindings)
     tracker.exclude = exclude
     key = list(spec.key)
     if key:
@@ -218,9 +247,9 @@ def _prepare_orphans(session: Session, tracker: Tracker, variable: Any) -> None:
     def note(message: str) -> None:
         tracker.notes.append(CheckFinding(variable.name, "orphan", "info", 0, (), (), (), message))
 
-    column = next((c for c in (variable.name, *variable.aliases) if c in tracker.columns), None)
-    if column is None:
+    if variable.name not in tracker.columns:
         return
+    column = variable.name
     table_name, _, column_name = variable.references.partition(".")
     parent = find_table(session, table_name)
     if parent is None:

@@ -21,6 +21,7 @@ PROVIDERS: list[str] = [
     "studylog.threats:status_sections",
     "studylog.journal:status_sections",
     "studylog.drops:status_sections",
+    "studylog.comparison:drop_sections",
 ]
 
 

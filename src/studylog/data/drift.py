@@ -6,7 +6,7 @@ The earlier drop's file is never re-read. Per variable present in both drops:
   PSI = sum over bins of (p_later - p_earlier) * ln(p_later / p_earlier), which equals
   KL(later || earlier) + KL(earlier || later). Bins of a numeric variable come from the *earlier* drop's
   deciles, tied edges merged, with open end bins: (-inf, d1], (d1, d2], ..., (dk, +inf). Categorical,
-  ordinal, boolean and identifier variables are binned by level (the union of both drops' levels, plus
+  ordinal and boolean variables are binned by level (the union of both drops' levels, plus
   one bin for the levels beyond the stored 1,000). Missing values (empty cells, missing codes, and cells
   that do not parse as the type) are their own bin. A bin share of 0 in either drop is replaced by
   EMPTY_BIN_SHARE = 0.0001 (no renormalisation), so that the logarithm is defined.
@@ -21,8 +21,9 @@ The earlier drop's file is never re-read. Per variable present in both drops:
 - new and vanished levels, the change in the missing share and in each missing code's share, and the
   standardised mean difference (mean_later - mean_earlier) / sqrt((sd_earlier^2 + sd_later^2) / 2).
 
-Date and datetime variables, and variables whose levels are withheld (free text, direct identifiers),
-get no PSI (``value`` null): their profiles keep no distribution to compare.
+Date and datetime variables, identifiers (each drop brings new ones; the record comparison covers
+them), and variables whose levels are withheld (free text, direct identifiers) get no PSI (``value``
+null, with a ``note``).
 """
 
 from __future__ import annotations
@@ -169,6 +170,10 @@ def variable_drift(earlier: dict[str, Any], later: dict[str, Any]) -> dict[str, 
     result["smd"] = _smd(earlier, later)
     result["new_levels"], result["vanished_levels"] = _level_changes(earlier, later)
     kind_earlier, kind_later = earlier.get("type"), later.get("type")
+    if "identifier" in (kind_earlier, kind_later):
+        result["new_levels"] = result["vanished_levels"] = None
+        result["note"] = "identifiers are compared record by record, not by their distribution"
+        return result
     numeric = kind_earlier in NUMERIC_TYPES and kind_later in NUMERIC_TYPES
     levelled = "levels" in earlier and "levels" in later
     if kind_earlier != kind_later and not numeric:
