@@ -171,3 +171,15 @@ def test_kendall_tau_b_for_ordinal_pairs_and_cramers_v_counts_missing() -> None:
 def test_unknown_target_is_a_usage_error() -> None:
     with pytest.raises(UsageError, match="--target"):
         profile_table(_table({"x": ["1"]}), {"x": VariableSpec("x", "integer")}, target="nope")
+
+
+def test_arrow_to_numpy_keeps_offsets_and_fills_nulls() -> None:
+    from studylog.data.univariate import to_numpy
+
+    floats = pa.chunked_array([pa.array([1.5, None, 3.0]), pa.array([None, 5.0, 6.0, 7.0]).slice(1, 2)])
+    assert to_numpy(floats, np.nan).tolist()[:1] == [1.5]
+    assert np.array_equal(to_numpy(floats, np.nan), np.array([1.5, np.nan, 3.0, 5.0, 6.0]), equal_nan=True)
+    flags = pa.array([True, None, False, True, True, False, True, False, True, None]).slice(3, 6)
+    assert to_numpy(flags, False).tolist() == [True, True, False, True, False, True]
+    codes = pa.array([7, None, 9], pa.int32())
+    assert to_numpy(codes, -1).tolist() == [7, -1, 9]

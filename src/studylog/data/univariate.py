@@ -246,8 +246,39 @@ class Missing:
         return int(self.mask.sum())
 
 
+_NUMPY_TYPES = {
+    pa.float64(): np.float64, pa.int64(): np.int64, pa.int32(): np.int32, pa.int16(): np.int16,
+    pa.int8(): np.int8, pa.uint32(): np.uint32,
+}
+
+
+def to_numpy(array: pa.ChunkedArray | pa.Array, fill: Any) -> np.ndarray:
+    """A numeric or boolean Arrow array as a new, writable numpy array, nulls as ``fill``.
+
+    Read from the Arrow buffers directly: pyarrow's own ``to_numpy`` imports pandas, half a second of a
+    command's start-up."""
+    if isinstance(array, pa.ChunkedArray):
+        parts = [to_numpy(chunk, fill) for chunk in array.chunks]
+        if parts:
+            return np.concatenate(parts)
+        return np.zeros(0, dtype=bool if pa.types.is_boolean(array.type) else _NUMPY_TYPES[array.type])
+    if array.null_count:
+        array = pc.fill_null(array, fill)
+    data = array.buffers()[1]
+    start, stop = array.offset, array.offset + len(array)
+    if pa.types.is_boolean(array.type):
+        if data is None:
+            return np.zeros(len(array), dtype=bool)
+        bits = np.unpackbits(np.frombuffer(data, dtype=np.uint8), bitorder="little")
+        return bits[start:stop].astype(bool)
+    dtype = _NUMPY_TYPES[array.type]
+    if data is None:
+        return np.zeros(len(array), dtype=dtype)
+    return np.frombuffer(data, dtype=dtype)[start:stop].copy()
+
+
 def _as_bool(array: pa.ChunkedArray | pa.Array) -> np.ndarray:
-    return np.asarray(pc.fill_null(array, False).to_numpy(zero_copy_only=False), dtype=bool)
+    return to_numpy(array, False)
 
 
 def find_missing(strings: pa.ChunkedArray, codes: Sequence[str]) -> Missing:
@@ -265,10 +296,7 @@ def find_missing(strings: pa.ChunkedArray, codes: Sequence[str]) -> Missing:
 
 def _writable_floats(array: pa.ChunkedArray | pa.Array) -> np.ndarray:
     """float64 values with NaN for nulls, in memory of our own (Arrow's buffers are read-only)."""
-    values = array.to_numpy(zero_copy_only=False)
-    if not values.flags.writeable or values.dtype != np.float64:
-        values = np.array(values, dtype=np.float64)
-    return values
+    return to_numpy(array, np.nan)
 
 
 def parse_numbers(strings: pa.ChunkedArray, missing: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -359,27 +387,39 @@ def level_counts(strings: pa.ChunkedArray, missing: np.ndarray) -> tuple[list[st
     encoded = pc.dictionary_encode(strings).combine_chunks()
     levels = encoded.dictionary.to_pylist()
     indices = encoded.indices
-    codes = np.asarray(pc.fill_null(indices, -1).to_numpy(zero_copy_only=False), dtype=np.int64)
+    codes = to_numpy(indices, -1).astype(np.int64)
     codes[missing] = -1
     counts = np.bincount(codes[codes >= 0], minlength=len(levels))
     return levels, counts, codes
 
 
 def variants(levels: Sequence[str], counts: np.ndarray) -> list[list[str]]:
-    """Groups of present values that differ only by letter case or surrounding whitespace."""
-    import pandas as pd
-
-    present = counts > 0
-    if present.sum() < 2:
+    """Groups of present values that differ only by letter case or surrounding whitespace (most
+    frequent value first in each group; the groups with the most rows first)."""
+    present = np.flatnonzero(counts > 0)
+    if present.size < 2:
         return []
-    frame = pd.DataFrame({"value": np.asarray(levels, dtype=object)[present], "count": counts[present]})
-    frame["key"] = frame["value"].str.strip().str.casefold()
-    sizes = frame.groupby("key")["value"].transform("size")
-    grouped = frame[sizes > 1].sort_values(["key", "count", "value"], ascending=[True, False, True])
-    groups = grouped.groupby("key", sort=False)["value"].agg(list)
-    # largest groups first, so the most affected levels are read first
-    total = grouped.groupby("key", sort=False)["count"].sum()
-    return [groups[key] for key in total.sort_values(ascending=False, kind="stable").index]
+    values = pa.array([levels[i] for i in present.tolist()], pa.string())
+    keys = pc.dictionary_encode(pc.utf8_lower(pc.utf8_trim_whitespace(values))).indices
+    key = to_numpy(keys, -1).astype(np.int64)
+    sizes = np.bincount(key)
+    grouped = np.flatnonzero(sizes[key] > 1)
+    if grouped.size == 0:
+        return []
+    member_counts = counts[present[grouped]]
+    group_rows = np.bincount(key[grouped], weights=member_counts)
+    # by group (most rows first), then by count (descending) within the group
+    order = np.lexsort((-member_counts, -group_rows[key[grouped]], key[grouped]))
+    order = order[np.argsort(-group_rows[key[grouped]][order], kind="stable")]
+    out: list[list[str]] = []
+    current = None
+    for position in order.tolist():
+        group = int(key[grouped][position])
+        if group != current:
+            out.append([])
+            current = group
+        out[-1].append(levels[int(present[grouped[position]])])
+    return out
 
 
 def level_summary(levels: list[str], counts: np.ndarray, masked: bool, kind: str) -> dict[str, Any]:
@@ -466,7 +506,7 @@ def text_summary(strings: pa.ChunkedArray, missing: np.ndarray) -> dict[str, Any
     missing_present = missing & _as_bool(pc.is_valid(strings))
     if missing_present.any():
         distinct -= int(pc.count_distinct(strings.take(pa.array(np.flatnonzero(missing_present)))).as_py())
-    lengths = np.asarray(pc.fill_null(pc.utf8_length(strings), 0).to_numpy(zero_copy_only=False))[~missing]
+    lengths = to_numpy(pc.cast(pc.utf8_length(strings), pa.int64()), 0)[~missing]
     return {
         "distinct": distinct,
         "length": {"min": int(lengths.min()), "max": int(lengths.max()), "mean": float(lengths.mean())},
