@@ -240,3 +240,15 @@ def test_inference_is_vectorised_enough(rows: int) -> None:
     assert time.perf_counter() - started < 10
     assert [c.type for c in proposal.columns] == ["identifier", "number", "categorical", "datetime"]
     assert proposal.key == ["id"]
+
+
+def test_a_pair_unique_only_in_the_first_rows_is_no_key(monkeypatch: pytest.MonkeyPatch) -> None:
+    from studylog.data import infer
+
+    monkeypatch.setattr(infer, "PAIR_PREFIX_ROWS", 3)
+    table = pa.table({
+        "person": ["p1", "p1", "p2", "p2", "p3", "p1"],
+        "visit": ["1", "2", "1", "2", "1", "1"],  # (p1, 1) comes back in the last row
+    })
+    assert infer_table(table).key == []
+    assert not table.to_pandas().duplicated().sum() == 0  # reference: pandas sees the repeat too

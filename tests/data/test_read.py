@@ -289,3 +289,22 @@ def test_csv_round_trip_through_the_standard_writer(tmp_path: Path, data: list[l
     expected = [[cell if cell != "" else None for cell in row] for row in data]
     got = [list(row) for row in zip(*(table.column(i).to_pylist() for i in range(3)))]
     assert got == expected
+
+
+def test_excel_and_parquet_progress_reach_the_file_size(tmp_path: Path) -> None:
+    import openpyxl
+
+    book = openpyxl.Workbook()
+    book.active.append(["n"])
+    for i in range(300):
+        book.active.append([i])
+    workbook = tmp_path / "x.xlsx"
+    book.save(workbook)
+    parquet = tmp_path / "x.parquet"
+    pq.write_table(pa.table({"n": list(range(300))}), parquet)
+    for path in (workbook, parquet):
+        seen: list[tuple[int, int]] = []
+        batches = list(open_source(path, batch_rows=100, progress=lambda d, t: seen.append((d, t))).batches())
+        assert sum(b.num_rows for b in batches) == 300
+        assert seen[-1] == (path.stat().st_size, path.stat().st_size)
+        assert [d for d, _ in seen] == sorted(d for d, _ in seen)

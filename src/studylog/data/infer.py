@@ -559,6 +559,7 @@ def _propose_sensitivity(proposal: Proposal, rest: _Values) -> None:
 
 KEY_TYPES = ("identifier", "integer", "categorical", "ordinal", "date", "datetime", "boolean")
 MAX_KEY_COLUMNS = 30
+PAIR_PREFIX_ROWS = 20_000
 
 
 def find_key(table: pa.Table, proposals: list[Proposal]) -> tuple[list[str], str] | None:
@@ -584,11 +585,16 @@ def find_key(table: pa.Table, proposals: list[Proposal]) -> tuple[list[str], str
         (a, b) for i, a in enumerate(complete[:MAX_KEY_COLUMNS]) for b in complete[i + 1 : MAX_KEY_COLUMNS]
         if distinct[a.name] > 1 and distinct[b.name] > 1 and distinct[a.name] * distinct[b.name] >= rows
     ]
+    prefix = table.slice(0, PAIR_PREFIX_ROWS)
     for a, b in pairs:
-        groups = table.select([a.name, b.name]).group_by([a.name, b.name]).aggregate([]).num_rows
-        if groups == rows:
+        # a pair repeated within the first rows is no key: most pairs are rejected without a full pass
+        if _unique_rows(prefix, [a.name, b.name]) and _unique_rows(table, [a.name, b.name]):
             return [a.name, b.name], f"{a.name} with {b.name} is complete and unique over {rows} rows"
     return None
+
+
+def _unique_rows(table: pa.Table, names: list[str]) -> bool:
+    return table.select(names).group_by(names).aggregate([]).num_rows == table.num_rows
 
 
 # ------------------------------------------------------------------------------------------- formatting

@@ -195,7 +195,9 @@ def excel_batches(source: Source) -> Iterator[pa.RecordBatch]:
     try:
         rows = _excel_rows(source, book)
         next(rows)  # the header
+        last_row = _pick_sheet(source.path, book, source.sheet).max_row or 0
         pending: list[tuple[Any, ...]] = []
+        line = 0
         for line, values in rows:
             if len(values) > width and any(v is not None and v != "" for v in values[width:]):
                 raise InputFileError(
@@ -204,9 +206,11 @@ def excel_batches(source: Source) -> Iterator[pa.RecordBatch]:
             pending.append(values[:width] + (None,) * (width - len(values)))
             if len(pending) == source.batch_rows:
                 yield _excel_batch(source, pending, pa)
+                _report(source, line, last_row)
                 pending = []
         if pending:
             yield _excel_batch(source, pending, pa)
+        _report(source, last_row, last_row)
     finally:
         book.close()
 
@@ -215,9 +219,13 @@ def _excel_batch(source: Source, rows: list[tuple[Any, ...]], pa: Any) -> pa.Rec
     # openpyxl hands out Python values cell by cell, so building the columns is a loop over cells; it
     # is bounded by the batch size and is the only way to read a workbook.
     columns = [pa.array(_column_text(list(values)), pa.string()) for values in zip(*rows)]
-    if source.progress is not None:
-        source.progress(0, source.size)
     return pa.RecordBatch.from_arrays(columns, names=source.columns)
+
+
+def _report(source: Source, row: int, last_row: int) -> None:
+    """Progress in bytes, estimated from the share of the sheet's rows read."""
+    if source.progress is not None and last_row:
+        source.progress(min(source.size, int(source.size * row / last_row)), source.size)
 
 
 def _column_text(values: list[Any]) -> list[str | None]:
