@@ -81,7 +81,7 @@ class RankBase:
             counts = np.bincount(offsets)
             seen = np.flatnonzero(counts)
             sorted_values = np.repeat(low + seen.astype(np.float64), counts[seen])
-            group_row = np.zeros(values.size, dtype=np.int64)
+            group_row = np.zeros(values.size, dtype=np.int32)
             group_row[rows] = offsets
             return cls(valid, sorted_values, group_row, int(counts.size), centred=values).finish()
         order = np.argsort(present)  # tie order is irrelevant: ties share a group
@@ -90,7 +90,7 @@ class RankBase:
         starts[:1] = True
         starts[1:] = sorted_values[1:] != sorted_values[:-1]
         group_sorted = np.cumsum(starts) - 1
-        group_row = np.zeros(values.size, dtype=np.int64)
+        group_row = np.zeros(values.size, dtype=np.int32)
         group_row[rows[order]] = group_sorted
         groups = int(group_sorted[-1]) + 1 if group_sorted.size else 0
         return cls(valid, sorted_values, group_row, groups, centred=values).finish()
