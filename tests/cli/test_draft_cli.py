@@ -155,3 +155,23 @@ def test_sensitive_examples_are_masked(cli, tmp_path: Path) -> None:  # type: ig
     assert email["sensitivity"] == "direct-identifier"
     assert set(email["evidence"]["examples"]) == {"[masked]"}
     assert "example.org" not in cli("draft", str(path)).stdout
+
+
+def test_progress_bar_only_on_a_terminal(monkeypatch: pytest.MonkeyPatch) -> None:
+    import io
+    import sys
+
+    from studylog.cli import draft as draft_cli
+
+    with draft_cli.progress_bar("reading") as progress:
+        assert progress is None  # the test's stderr is not a terminal
+
+    class Terminal(io.StringIO):
+        def isatty(self) -> bool:
+            return True
+
+    monkeypatch.setattr(sys, "stderr", Terminal())
+    with draft_cli.progress_bar("reading") as progress:
+        assert progress is not None
+        progress(50, 100)
+        progress(100, 100)

@@ -251,4 +251,4 @@ def test_a_pair_unique_only_in_the_first_rows_is_no_key(monkeypatch: pytest.Monk
         "visit": ["1", "2", "1", "2", "1", "1"],  # (p1, 1) comes back in the last row
     })
     assert infer_table(table).key == []
-    assert not table.to_pandas().duplicated().sum() == 0  # reference: pandas sees the repeat too
+    assert table.to_pandas().duplicated().sum() == 1  # reference: pandas sees the repeat too

@@ -90,27 +90,30 @@ def _details(row: dict[str, Any]) -> str:
     return ""
 
 
+def _shortened(values: list[str], limit: int = 36) -> str:
+    text = ", ".join(values[:3])
+    return text if len(text) <= limit else text[: limit - 1] + "…"
+
+
 def _show(document: dict[str, Any]) -> None:
     shape = f"{document['rows']} rows, {document['columns']} columns"
     where = "existing" if document["table_exists"] else "new"
     render.say(f"{document['file']} ({document['format']}, {shape}) -> {where} table '{document['table']}'")
-    rows = []
+    entries, evidence_rows = [], []
     for row in document["variables"]:
         evidence = row["evidence"]
         share = evidence["share_parsed"]
         extremes = f"{row['minimum']} .. {row['maximum']}" if row["minimum"] is not None else ""
         role = f" ({row['role']})" if row["role"] and row["role"] != row["type"] else ""
         codes = ", ".join(f"{c['code']} ×{c['count']}" for c in row["missing_codes"])
-        rows.append([
-            row["name"], row["type"] + role, _details(row), codes,
-            f"{share:.1%}" if share is not None else "",
-            evidence["distinct"], evidence["empty"], extremes,
-            ", ".join(evidence["examples"][:3]),
-            ", ".join(evidence["not_parsed"][:3]),
-            row["action"],
+        entries.append([row["name"], row["type"] + role, _details(row), codes, row["action"]])
+        evidence_rows.append([
+            row["name"], f"{share:.1%}" if share is not None else "", evidence["distinct"], evidence["empty"],
+            extremes, _shortened(evidence["examples"]), _shortened(evidence["not_parsed"]),
         ])
-    render.table(["column", "type", "details", "missing codes", "parsed", "distinct", "empty",
-                  "observed range", "examples", "not parsed", "action"], rows, title="Proposed entries")
+    render.table(["column", "type", "details", "missing codes", "action"], entries, title="Proposed entries")
+    render.table(["column", "parsed", "distinct", "empty", "observed range", "examples", "not parsed"],
+                 evidence_rows, title="Evidence")
     notes = [(row["name"], note) for row in document["variables"] for note in row["evidence"]["notes"]]
     for name, note in notes:
         render.say(f"  {name}: {note}")

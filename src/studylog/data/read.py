@@ -120,6 +120,8 @@ def open_source(
             raise UsageError(f"unknown encoding '{encoding}' (try utf-8, latin-1 or cp1252)") from None
     try:
         size = file.stat().st_size
+        with open(file, "rb") as handle:
+            handle.read(1)
     except OSError as exc:
         raise InputFileError(str(file), f"cannot be read ({exc.strerror})") from None
     suffix = file.suffix.lower()
