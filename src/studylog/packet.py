@@ -312,14 +312,16 @@ def read_answers(path: str | Path) -> list[AnswerRow]:
     """The rows of a filled-in CSV packet: question id, answer and who answered, with their line numbers."""
     name = str(path)
     try:
-        text = Path(path).read_text(encoding="utf-8-sig")
+        # newline="": a carriage return inside a quoted cell is part of the cell, not a line end
+        with open(path, encoding="utf-8-sig", newline="") as handle:
+            text = handle.read()
     except FileNotFoundError as exc:
         raise InputFileError(name, "no such file") from exc
     except UnicodeDecodeError as exc:
         raise InputFileError(name, "not UTF-8 text; save the packet as CSV (UTF-8)") from exc
     except OSError as exc:
         raise InputFileError(name, f"cannot be read: {exc.strerror}") from exc
-    reader = csv.reader(io.StringIO(text, newline=""), delimiter=_delimiter(text.split("\n", 1)[0]))
+    reader = csv.reader(io.StringIO(text, newline=""), delimiter=_delimiter(text.splitlines()[0] if text else ""))
     try:
         header = [safety.restore_cell(h).strip().lower() for h in next(reader, [])]
     except csv.Error as exc:
@@ -350,7 +352,8 @@ def read_answers(path: str | Path) -> list[AnswerRow]:
             return value or None
 
         raw_id = cell("id")
-        if raw_id is None or not raw_id.isdigit():
+        # ASCII digits only ("²" and "٣" pass str.isdigit), and no more than SQLite's 64-bit integers
+        if raw_id is None or not (raw_id.isascii() and raw_id.isdigit()) or len(raw_id) > 18:
             raise InputFileError(name, f"the id {raw_id or '(empty)'!r} is not a question number", start)
         row = AnswerRow(start, int(raw_id), cell("answer"), cell("answered_by"))
         earlier = seen.get(row.question_id)

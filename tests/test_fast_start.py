@@ -1,0 +1,80 @@
+"""The journal's commands start fast: run as real processes against a real store, they import no pandas,
+pyarrow, numpy or scipy (the import log of ``python -X importtime`` names every module loaded)."""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+HEAVY = ("pandas", "pyarrow", "numpy", "scipy")
+
+COMMANDS = [
+    ["log", "cap income", "--kind", "outliers", "--var", "income", "--why", "a typo"],
+    ["log", "impute income", "--kind", "missing", "--assumption", "MAR", "--proposed", "--json"],
+    ["decisions", "--json"],
+    ["decision", "show", "1"],
+    ["decision", "implement", "1", "--code", "clean.py:3"],
+    ["note", "heaping at 5-year marks", "--var", "age", "--tag", "eda"],
+    ["conclude", "renewal falls with age"],
+    ["next", "repeat on April"],
+    ["ask", "Is -99 a refusal?", "--var", "income", "--to", "owner"],
+    ["answer", "1", "yes"],
+    ["questions", "--status", "all"],
+    ["threat", "add", "self-report", "--kind", "construct", "--var", "income"],
+    ["threat", "set", "1", "--status", "accepted", "--why", "inherent"],
+    ["threats", "--json"],
+    ["timeline"],
+    ["plan", "freeze"],
+]
+
+
+def _run(args: list[str], env: dict[str, str], cwd: Path) -> subprocess.CompletedProcess[str]:
+    return subprocess.run([sys.executable, "-X", "importtime", "-m", "studylog", *args], env=env, cwd=cwd,
+                          capture_output=True, text=True, timeout=60, check=False)
+
+
+def _imported(stderr: str) -> set[str]:
+    names = set()
+    for line in stderr.splitlines():
+        if line.startswith("import time:") and "|" in line:
+            names.add(line.rsplit("|", 1)[1].strip().split(".")[0])
+    return names
+
+
+@pytest.fixture(scope="module")
+def real_store(tmp_path_factory: pytest.TempPathFactory) -> tuple[dict[str, str], Path]:
+    folder = tmp_path_factory.mktemp("fast")
+    env = {**os.environ, "STUDYLOG_STORE": str(folder / "studylog.db"), "STUDYLOG_AUTHOR": "tester",
+           "NO_COLOR": "1"}
+    assert _run(["init", "--title", "fast"], env, folder).returncode == 0
+    # the variables the commands name, and a checked drop, through the library
+    code = (
+        "from studylog import dictionary\n"
+        "from studylog.store.session import locate, transaction\n"
+        "from studylog.store.models import Drop, Profile\n"
+        "with transaction(locate(), write=True) as s:\n"
+        "    dictionary.add_variable(s, 'income', {'type': 'number'})\n"
+        "    dictionary.add_variable(s, 'age', {'type': 'integer'})\n"
+        "    d = Drop(table_id=1, file_name='a.csv', sha256='0'*64, size=1, rows=10, columns=2,\n"
+        "             checked_at='2026-01-01T00:00:00.000000Z', author='x')\n"
+        "    s.add(d); s.flush()\n"
+        "    s.add(Profile(drop_id=d.id, variable='income', data={'rows': 10, 'count': 9, 'missing': 1}))\n"
+    )
+    done = subprocess.run([sys.executable, "-c", code], env=env, cwd=folder, capture_output=True, text=True)
+    assert done.returncode == 0, done.stderr
+    return env, folder
+
+
+@pytest.mark.parametrize("args", COMMANDS, ids=[" ".join(a[:2]) for a in COMMANDS])
+def test_journal_commands_import_nothing_heavy(real_store: tuple[dict[str, str], Path], args: list[str]) -> None:
+    env, folder = real_store
+    done = _run(args, env, folder)
+    assert done.returncode == 0, done.stderr[-2000:]
+    loaded = _imported(done.stderr)
+    assert "studylog" in loaded and "sqlalchemy" in loaded  # the log is really an import log
+    heavy = sorted(loaded & set(HEAVY))
+    assert heavy == [], f"'studylog {' '.join(args)}' imported {heavy}"
