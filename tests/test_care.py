@@ -435,6 +435,7 @@ def test_doctor_finds_every_history_written_by_the_commands_sound(cli, study: Pa
     _ok(cli, "decision", "revert", str(second), "--why", "the owner sent the missing ages")
     asked = _ok(cli, "ask", "Is -99 a refusal?", "--var", "sex_code", "--to", "data owner")["id"]
     _ok(cli, "answer", str(asked), "Yes, -99 is a refusal", "--by", "Dr. Owner")
+    _ok(cli, "withdraw", str(_ok(cli, "ask", "Unit of age?")["id"]), "--why", "in the manual")
     withdrawn = _ok(cli, "ask", "Call Ann Smith on 555-0101?", "--to", "field team")["id"]
     _ok(cli, "withdraw", str(withdrawn), "--why", "answered in the manual")
     _ok(cli, "redact", "question", str(withdrawn), "--why", "a name and a phone number")

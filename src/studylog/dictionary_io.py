@@ -227,6 +227,9 @@ def import_file(session: Session, path: str | Path, *, why: str | None = None) -
             document = json.loads(text)
         except json.JSONDecodeError as exc:
             raise InputFileError(shown, f"not valid JSON: {exc.msg}", exc.lineno) from None
+        except RecursionError:
+            # thousands of nested brackets exhaust the parser's stack: a hostile file, not a bug
+            raise InputFileError(shown, "not a dictionary: JSON nested too deeply") from None
         if isinstance(document, dict) and "@context" in document:
             return _import_csvw(session, shown, document)
         tables, entries = _json_entries(shown, document)

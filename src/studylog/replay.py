@@ -56,11 +56,14 @@ ENTITY_MODELS: dict[str, type[Base]] = {
 # actions that replace a field's text on purpose without keeping the old text
 UNCHECKABLE_ACTIONS = frozenset({"redact"})
 
-# changes that also stamp fields with their own author or time, without a change row for each (a
-# "confirm" is one change for the status, and sets who confirmed and when; an answer sets when)
+# changes that also stamp fields with their own author, time or reason, without a change row for each
+# (a "confirm" is one change for the status, and sets who confirmed and when; an answer sets when; a
+# withdrawal keeps its reason). A part that sets a field this way adds it here; the doctor's test that
+# runs every writing command fails until it does.
 STAMPS: dict[str, dict[str, str]] = {
     "confirm": {"confirmed_by": "author", "confirmed_at": "at"},
     "answer": {"answered_at": "at"},
+    "withdraw": {"withdrawn_why": "why"},
 }
 
 # the record's own bookkeeping, stamped on every change without a change row of its own
@@ -171,7 +174,7 @@ def replay(changes: list[Change], columns: set[str]) -> tuple[dict[str, Any], li
         state[name] = change.new
         for stamp, source in STAMPS.get(change.action, {}).items():
             if stamp in columns and stamp not in stopped:
-                state[stamp] = change.author if source == "author" else change.at
+                state[stamp] = getattr(change, source)
     return state, breaks
 
 
