@@ -136,3 +136,21 @@ def test_orphans_against_parent_keys() -> None:
         check.update(part)
     assert check.count == 2  # the empty foreign key is a missing value, not an orphan
     assert check.rows == [2, 5] and check.keys == ["V2", "V5"] and check.values == ["M9", "M7"]
+
+
+def test_keys_sharing_their_top_bits_stay_distinct() -> None:
+    # the sort packs positions into the low bits of the first lane; keys that differ only there (or
+    # only in the second lane) must still be told apart, and repeats found exactly
+    rng = np.random.default_rng(9)
+    k0 = np.full(40, 0xABCD_0000_0000_0000, dtype=np.uint64) + rng.integers(0, 4, 40).astype(np.uint64)
+    k1 = rng.integers(1, 6, 40).astype(np.uint64)
+    digests_ = np.column_stack([k0, k1, np.ones(40, np.uint64), np.ones(40, np.uint64)])
+    first, repeats = digests.unique_keys(digests_)
+    pairs = list(zip(k0.tolist(), k1.tolist()))
+    expected_first = sorted({p: i for i, p in reversed(list(enumerate(pairs)))}.values())
+    assert sorted(first.tolist()) == expected_first
+    assert len(repeats) == 40 - len(expected_first)
+    ordered = [pairs[i] for i in first]
+    assert [a for a, _ in ordered] == sorted(a for a, _ in ordered)
+    found = digests.lookup(k0[first], k1[first], k0, k1)
+    assert all(pairs[first[f]] == p for f, p in zip(found, pairs))
