@@ -34,8 +34,6 @@ from studylog.safety import mask
 if TYPE_CHECKING:
     from studylog.data.infer import Proposal, TableProposal
 
-# The fields the data can speak to; the others (labels, sources, ...) are the analyst's.
-DATA_FIELDS = ("type", "levels", "true_values", "false_values", "date_format", "missing_codes")
 DEFAULTED_FIELDS = {"role": "input", "sensitivity": "none"}
 LONGEST_NAME = 255
 DEFAULT_TABLE = "data"
@@ -164,7 +162,11 @@ def reconcile(session: Session | None, draft: Draft, *, table: str | None = None
                 row["action"] = "update" if changes else "same"
                 row["changes"] = sorted(changes)
                 if changes and write and session is not None:
-                    dictionary.update_variable(session, variable.name, changes, table=name, why=why)
+                    try:
+                        dictionary.update_variable(session, variable.name, changes, table=name, why=why)
+                    except InvalidValue as exc:  # raised before anything is changed
+                        row["action"] = "refuse"
+                        document["refused"].append({"variable": column.name, "why": exc.message})
             else:
                 row["action"] = "keep"
                 for field, new in changes.items():
@@ -225,33 +227,37 @@ def _refusal(name: str) -> str | None:
 
 
 def _changes(variable: Any, column: Proposal) -> dict[str, Any]:
-    """The proposed fields that differ from the entry, in the entry's stored form."""
+    """The proposed fields that differ from the entry.
+
+    Lists of codes and values only grow: what the entry declares is kept with its labels (a level or a
+    missing code may simply be absent from this file), and what the file adds is appended.
+    """
     proposed = column.fields()
     changes: dict[str, Any] = {}
-    for field in DATA_FIELDS:
-        if field not in proposed and field != "type":
-            continue
-        new = normalise(field, proposed.get(field))
-        old = getattr(variable, field)
-        if _comparable(field, new) != _comparable(field, old):
-            changes[field] = proposed.get(field)
+    if proposed["type"] != variable.type:
+        changes["type"] = proposed["type"]
+    if proposed.get("date_format") and proposed["date_format"] != variable.date_format:
+        changes["date_format"] = proposed["date_format"]
+    for field in ("levels", "missing_codes"):
+        held = [dict(item) for item in getattr(variable, field) or []]
+        codes = {str(item["code"]) for item in held}
+        added = [item for item in normalise(field, proposed.get(field)) if item["code"] not in codes]
+        if added:
+            changes[field] = held + added
+    for field in ("true_values", "false_values"):
+        held = list(getattr(variable, field) or [])
+        added = [value for value in proposed.get(field, []) if value not in held]
+        if added:
+            changes[field] = held + added
     for field, default in DEFAULTED_FIELDS.items():
         if field in proposed and getattr(variable, field) in (default, None) and proposed[field] != default:
             changes[field] = proposed[field]
-    if (changes.get("type") or variable.type) not in ("categorical", "ordinal") and variable.levels:
-        changes.setdefault("levels", [])  # a type without levels cannot keep them
-    if (changes.get("type") or variable.type) != "boolean" and (variable.true_values or variable.false_values):
-        changes.setdefault("true_values", [])
-        changes.setdefault("false_values", [])
+    kind = changes.get("type") or variable.type
+    if kind not in ("categorical", "ordinal") and variable.levels:
+        changes["levels"] = []  # a type without levels cannot keep them
+    if kind != "boolean" and (variable.true_values or variable.false_values):
+        changes["true_values"], changes["false_values"] = [], []
     return changes
-
-
-def _comparable(field: str, value: Any) -> Any:
-    if field in ("levels", "missing_codes"):
-        return [str(item["code"]) for item in value or []]
-    if field in ("true_values", "false_values"):
-        return sorted(value or [])
-    return value
 
 
 def _compare_key(session: Session | None, owner: Any, draft: Draft, document: dict[str, Any],

@@ -175,3 +175,21 @@ def test_progress_bar_only_on_a_terminal(monkeypatch: pytest.MonkeyPatch) -> Non
         assert progress is not None
         progress(50, 100)
         progress(100, 100)
+
+
+def test_draft_updates_keep_declared_codes_and_labels(cli, study: Path, visits: Path, tmp_path: Path) -> None:  # type: ignore[no-untyped-def]
+    run_json(cli, "draft", str(visits), "--apply")
+    assert cli("var", "set", "age", "--missing-codes", "-99=refused,-98=don't know").exit_code == 0
+    assert cli("var", "set", "plan", "--levels", "basic=Basic plan,plus,premium,legacy").exit_code == 0
+    grown = tmp_path / "grown" / "visits.csv"
+    grown.parent.mkdir()
+    grown.write_text(VISITS.replace(",plus,", ",family,"), encoding="utf-8")
+    document = run_json(cli, "draft", str(grown), "--apply")
+    actions = {v["name"]: v["action"] for v in document["variables"]}
+    assert actions["age"] == "same"  # -99 is declared already, -98 stays declared
+    assert actions["plan"] == "update"
+    age = run_json(cli, "var", "show", "age")
+    assert [(c["code"], c["label"]) for c in age["missing_codes"]] == [("-99", "refused"), ("-98", "don't know")]
+    plan = run_json(cli, "var", "show", "plan")
+    assert [(lv["code"], lv["label"]) for lv in plan["levels"]] == [
+        ("basic", "Basic plan"), ("plus", None), ("premium", None), ("legacy", None), ("family", None)]
