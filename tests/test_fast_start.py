@@ -1,5 +1,7 @@
 """The journal's commands start fast: run as real processes against a real store, they import no pandas,
-pyarrow, numpy or scipy (the import log of ``python -X importtime`` names every module loaded)."""
+pyarrow, numpy or scipy. Checked twice: by the import log of ``python -X importtime`` and by ``sys.modules``
+after the command ran (the import log does not show modules loaded through ``importlib.import_module``,
+as the command modules are)."""
 
 from __future__ import annotations
 
@@ -69,6 +71,20 @@ def real_store(tmp_path_factory: pytest.TempPathFactory) -> tuple[dict[str, str]
     return env, folder
 
 
+IN_PROCESS = """
+import runpy, sys
+sys.argv = ["studylog", *sys.argv[1:]]
+try:
+    runpy.run_module("studylog", run_name="__main__", alter_sys=True)
+except SystemExit as exc:
+    code = exc.code
+else:
+    code = 0
+heavy = sorted({m.split(".")[0] for m in sys.modules} & {"pandas", "pyarrow", "numpy", "scipy"})
+sys.stderr.write(f"\\nexit={code} heavy={','.join(heavy)} journal={'studylog.journal' in sys.modules}\\n")
+"""
+
+
 @pytest.mark.parametrize("args", COMMANDS, ids=[" ".join(a[:2]) for a in COMMANDS])
 def test_journal_commands_import_nothing_heavy(real_store: tuple[dict[str, str], Path], args: list[str]) -> None:
     env, folder = real_store
@@ -78,3 +94,14 @@ def test_journal_commands_import_nothing_heavy(real_store: tuple[dict[str, str],
     assert "studylog" in loaded and "sqlalchemy" in loaded  # the log is really an import log
     heavy = sorted(loaded & set(HEAVY))
     assert heavy == [], f"'studylog {' '.join(args)}' imported {heavy}"
+
+
+@pytest.mark.parametrize("args", [COMMANDS[0], COMMANDS[8], COMMANDS[11], COMMANDS[14]],
+                         ids=["log", "ask", "threat add", "timeline"])
+def test_nothing_heavy_in_sys_modules_after_the_command(real_store: tuple[dict[str, str], Path],
+                                                        args: list[str]) -> None:
+    env, folder = real_store
+    done = subprocess.run([sys.executable, "-c", IN_PROCESS, *args], env=env, cwd=folder, capture_output=True,
+                          text=True, timeout=60, check=False)
+    last = done.stderr.strip().splitlines()[-1]
+    assert last == "exit=0 heavy= journal=True", done.stderr[-2000:]

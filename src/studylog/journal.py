@@ -90,7 +90,8 @@ def link(session: Session, source_kind: str, source_id: int, *, variables: list[
         session.add(Link(source_kind=source_kind, source_id=source_id, variable_id=variable.id))
     for decision_id in decisions or []:
         session.add(Link(source_kind=source_kind, source_id=source_id, decision_id=decision_id))
-    session.flush()
+    if variables or decisions:
+        session.flush()
 
 
 def linked_variables(session: Session, source_kind: str, ids: list[int]) -> dict[int, list[str]]:
@@ -334,7 +335,8 @@ def log_decision(
     session.add(decision)
     session.flush()
     link(session, "decision", decision.id, variables=linked)
-    result = decision_dict(session, decision)
+    # built from what is at hand (a new decision has no successors): no queries, so `log` stays quick
+    result = _as_dict(decision, [v.name for v in linked], [])
     history.record(session, "decision", decision.id, "create", new=_history_view(result), at=stamp)
     return result
 
