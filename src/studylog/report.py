@@ -155,8 +155,10 @@ def environment(fmt: str, extra_folder: Path | None = None, *, strict: bool = Tr
         loader=jinja2.ChoiceLoader(loaders),
         autoescape=(fmt == "html"),
         undefined=jinja2.StrictUndefined if strict else jinja2.Undefined,
-        trim_blocks=True,
-        lstrip_blocks=True,
+        # Markdown is line-sensitive: block tags on their own lines leave nothing behind; in HTML the
+        # newline after a tag stays, so that sentences ending and starting in tags keep their space
+        trim_blocks=(fmt == "md"),
+        lstrip_blocks=(fmt == "md"),
         keep_trailing_newline=True,
     )
     env.filters.update(_filters(fmt))
