@@ -73,12 +73,16 @@ def test_the_export_reads_back_into_a_new_study_unchanged(study: Path, tmp_path:
         assert member.references == "members.member_id"
         assert dictionary.resolve_table(session, "visits").key == ["visit_id"]
     assert again["added"] == 0 and again["updated"] == 0 and again["unchanged"] == 11
-    # the fixture's raw levels lack an order; the dictionary adds "order": null on the way in
-    for table in first["tables"]:
+    assert second == _with_orders(first)
+
+
+def _with_orders(document: dict) -> dict:
+    """The fixture writes levels without an order; the dictionary adds "order": null on the way in."""
+    for table in document["tables"]:
         for column in table["tableSchema"]["columns"]:
             for level in column["studylog:variable"].get("levels", []):
                 level.setdefault("order", None)
-    assert second == first
+    return document
 
 
 # The W3C CSVW test suite's countries example (w3c/csvw, tests/countries.json), written as the
@@ -267,3 +271,26 @@ def test_round_trip_keeps_every_field(tmp_path: Path, variables: list) -> None:
         assert after == before
     finally:
         dispose_engines()
+
+
+def test_var_export_and_import_dispatch_to_csvw(cli, study: Path, tmp_path: Path) -> None:  # type: ignore[no-untyped-def]
+    build_in_store()
+    exported = tmp_path / "dictionary.csvw.json"
+    result = cli("var", "export", "--format", "csvw", "-o", str(exported))
+    assert result.exit_code == 0, result.stderr
+    document = json.loads(exported.read_text(encoding="utf-8"))
+    assert document["@context"] == "http://www.w3.org/ns/csvw" and len(document["tables"]) == 2
+    other = tmp_path / "other" / "studylog.db"
+    assert cli("--store", str(other), "init", "--title", "other").exit_code == 0
+    imported = cli("--store", str(other), "var", "import", str(exported), "--json")
+    assert imported.exit_code == 0, imported.stderr
+    summary = json.loads(imported.stdout)
+    assert summary["format"] == "csvw" and summary["added"] == 11
+    again = tmp_path / "again.json"
+    assert cli("--store", str(other), "var", "export", "--format", "csvw", "-o", str(again)).exit_code == 0
+    assert json.loads(again.read_text(encoding="utf-8")) == _with_orders(document)
+    # a document that is not CSVW metadata changes nothing and says why
+    bad = tmp_path / "bad.json"
+    bad.write_text(json.dumps({"@context": "http://www.w3.org/ns/csvw", "tables": "x"}), encoding="utf-8")
+    refused = cli("--store", str(other), "var", "import", str(bad))
+    assert refused.exit_code == 2 and "tables must be" in refused.stderr
