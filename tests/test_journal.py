@@ -445,3 +445,32 @@ def test_two_processes_logging_at_once_lose_nothing(study: Path) -> None:
         creates = session.scalar(select(func.count(Change.id)).where(Change.entity == "decision"))
     assert texts == {f"decision {w}-{i}" for w in "ab" for i in range(200)}
     assert creates == 400
+
+
+def test_the_history_replays_to_every_journal_record(study: Path, tmp_path: Path) -> None:
+    """The doctor's replay of the change history ends at each record's current values (nothing written
+    without its change row), through every kind of change the journal makes, redactions included."""
+    from studylog import questions, replay, threats
+
+    add_var("age")
+    with tx() as session:
+        a = journal.log_decision(session, "a", kind="outliers", variables=["age"], proposed=True, why="w")
+        journal.adopt(session, a["id"])
+        journal.implement(session, a["id"], "x.py:3")
+        b = journal.supersede(session, a["id"], "b", why="better")
+        journal.revert(session, b["id"], "not needed")
+        journal.freeze_plan(session, "plan v1")
+        notes.add_entry(session, "note", "seen by Jane Roe", variables=["age"], tags=["t"])
+        q = questions.ask(session, "Is -99 a refusal?", variables=["age"], to="owner", priority="high")
+        questions.answer(session, q["id"], "yes")
+        questions.answer(session, q["id"], "yes, since 2020", by="Dr Rivera")
+        w = questions.ask(session, "moot?")
+        questions.withdraw(session, w["id"], "moot")
+        t = threats.add(session, "selection", kind="internal", decisions=[a["id"]])
+        threats.update(session, t["id"], mitigation="weights", status="mitigated", why="done")
+    redaction.redact(locate(), "note", 1, "a name", ["Jane Roe"])
+    redaction.redact(locate(), "question", q["id"], "whole")
+    with tx() as session:
+        assert replay.mismatches(session) == []
+        assert replay.history_of_missing_records(session) == []
+        assert replay.orphaned_links(session) == []

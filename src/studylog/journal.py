@@ -465,6 +465,9 @@ def freeze_plan(session: Session, note: str | None = None) -> dict[str, Any]:
     stamp = now()
     history.record(session, "study", study.id, "freeze-plan", field="plan_frozen_at", new=stamp,
                    why=note, at=stamp)
+    if note:
+        history.record(session, "study", study.id, "freeze-plan", field="plan_note", old=study.plan_note,
+                       new=note, at=stamp)
     study.plan_frozen_at = stamp
     study.plan_note = note
     pre = session.scalars(select(Decision.id).where(Decision.post_hoc.is_(False))).all()

@@ -109,7 +109,11 @@ def redact_in(session: Session, kind: str, record_id: int, why: str | None,
                 new = REDACTED if new is not None else None
             old, new = _scrub_fields(old, text_fields), _scrub_fields(new, text_fields)
             reason = REDACTED if reason else reason
-        old, new, reason = _scrub(old, pieces), _scrub(new, pieces), _scrub(reason, pieces)
+        if own:
+            old, new = _scrub(old, pieces), _scrub(new, pieces)
+        # a dictionary change caused by the answer keeps its values (they are the dictionary's, and are
+        # redacted there if need be); the reason given for it may quote the answer
+        reason = _scrub(reason, pieces)
         if (old, new, reason) != (change.old, change.new, change.why):
             change.old, change.new, change.why = old, new, reason
             scrubbed += 1
