@@ -29,6 +29,7 @@ from sqlalchemy.orm import Session
 
 from studylog import __version__
 from studylog import report_context as rc
+from studylog import report_dictionary
 from studylog.errors import InputFileError, InvalidValue
 from studylog.safety import DEFAULT_MIN_CELL
 
@@ -206,7 +207,7 @@ def context(session: Session, document: str, *, fmt: str = "md",
         "several_tables": s.several_tables,
     }
     builders = {
-        "dictionary": rc.dictionary_context, "methods": rc.methods_context,
+        "dictionary": report_dictionary.dictionary_context, "methods": rc.methods_context,
         "validity": rc.validity_context, "conclusions": rc.conclusions_context,
         "questions": rc.questions_context,
     }
