@@ -180,7 +180,7 @@ def compare(path: Path, folder: Path, repeat: int) -> dict[str, float]:
     results: dict[str, float] = {}
     best: dict[str, tuple[float, float, float]] = {}
     for attempt in range(repeat):
-        store_folder = folder / f"study-{attempt}"
+        store_folder = folder / f"study-{path.stem}-{attempt}"
         shutil.rmtree(store_folder, ignore_errors=True)
         store = set_up_study(store_folder)
         env = dict(os.environ, STUDYLOG_STORE=str(store), STUDYLOG_AUTHOR="benchmark", NO_COLOR="1")
