@@ -35,7 +35,8 @@ from studylog.store.models import (
 from studylog.store.session import locate, transaction
 
 HOSTILE = "Measured at triage. <script>alert('x')</script> <img src=x onerror=alert(1)>"
-RAW_HTML_MD = "Free text from the form.\n\n<div onclick=\"steal()\">raw block</div>\n\n![tracker](http://example.invalid/t.png)"
+RAW_HTML_MD = ("Free text from the form, see [the form](javascript:alert(1)).\n\n"
+               "<div onclick=\"steal()\">raw block</div>\n\n![tracker](http://example.invalid/t.png)")
 SECRET_LEVEL = "HIV-positive"
 MEMBER_ID_VALUE = "M-000123"
 AGE_MIN, AGE_MAX = 17, 103
