@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import csv
-import io
 import json
 import sqlite3
 import subprocess
@@ -14,7 +12,7 @@ from pathlib import Path
 import pytest
 from sqlalchemy import select, text
 
-from store_filler import snapshot
+from store_filler import snapshot, work_through_commands
 from studylog import care, dictionary, history
 from studylog.store import schema
 from studylog.store.models import Decision, Link, Variable
@@ -404,59 +402,9 @@ def test_restore_over_a_damaged_store_keeps_the_damaged_bytes(cli, study: Path, 
     assert snapshot(_loc(study)) == snapshot(_loc(saved))
 
 
-def _ok(cli, *args: str) -> dict:  # type: ignore[no-untyped-def]
-    result = cli(*args, "--json")
-    assert result.exit_code == 0, (args, result.output)
-    return json.loads(result.stdout) if result.stdout.strip() else {}
-
-
 def test_doctor_finds_every_history_written_by_the_commands_sound(cli, study: Path, tmp_path: Path) -> None:
     """A study worked through every command that writes: the doctor must raise no false alarm."""
-    _ok(cli, "table", "add", "visits", "--key", "visit_id", "--grain", "one row per visit")
-    _ok(cli, "var", "add", "visit_id", "--type", "identifier", "--required", "--unique")
-    _ok(cli, "var", "add", "age", "--type", "integer", "--min", "0", "--max", "120", "--unit", "years")
-    _ok(cli, "var", "add", "sex", "--type", "categorical", "--levels", "1=male,2=female",
-        "--missing-codes", "-99=refused")
-    _ok(cli, "var", "add", "income", "--type", "number", "--sensitivity", "sensitive")
-    _ok(cli, "var", "set", "age", "--label", "Age at the visit", "--plausible-max", "100")
-    _ok(cli, "var", "confirm", "age", "sex")
-    _ok(cli, "var", "set", "age", "--description", "Age in whole years", "--why", "asked the owner")
-    _ok(cli, "var", "rename", "sex", "sex_code", "--why", "clearer")
-    _ok(cli, "var", "deprecate", "income", "--why", "not delivered")
-    _ok(cli, "table", "set", "visits", "--description", "Clinic visits", "--why", "agreed")
-    _ok(cli, "var", "freeze", "v1", "--note", "agreed with the data owner")
-    _ok(cli, "rule", "add", "adult", "age >= 18", "--why", "adults only")
-    _ok(cli, "rule", "retire", "adult", "--why", "children are in scope after all")
-    first = _ok(cli, "log", "Drop visits without an age", "--kind", "missing", "--var", "age",
-                "--why", "few", "--code", "clean.py:12")["id"]
-    _ok(cli, "decision", "implement", str(first), "--code", "clean.py:40")
-    second = _ok(cli, "decision", "supersede", str(first), "Impute age by median",
-                 "--why", "too many dropped")["id"]
-    _ok(cli, "decision", "revert", str(second), "--why", "the owner sent the missing ages")
-    asked = _ok(cli, "ask", "Is -99 a refusal?", "--var", "sex_code", "--to", "data owner")["id"]
-    _ok(cli, "answer", str(asked), "Yes, -99 is a refusal", "--by", "Dr. Owner")
-    _ok(cli, "withdraw", str(_ok(cli, "ask", "Unit of age?")["id"]), "--why", "in the manual")
-    withdrawn = _ok(cli, "ask", "Call Ann Smith on 555-0101?", "--to", "field team")["id"]
-    _ok(cli, "withdraw", str(withdrawn), "--why", "answered in the manual")
-    _ok(cli, "redact", "question", str(withdrawn), "--why", "a name and a phone number")
-    threat = _ok(cli, "threat", "add", "Age is self-reported", "--kind", "construct", "--var", "age")["id"]
-    _ok(cli, "threat", "set", str(threat), "--mitigation", "compare with the registry", "--why", "plan")
-    _ok(cli, "note", "The April file had a new column", "--tag", "drops")
-    _ok(cli, "conclude", "Age is the strongest input", "--var", "age")
-    _ok(cli, "next", "Ask the lab about detection limits")
-    _ok(cli, "plan", "freeze", "--note", "before modelling")
-    packet = tmp_path / "answers.csv"
-    asked_again = _ok(cli, "ask", "Which unit is income in?", "--to", "data owner")["id"]
-    exported = cli("questions", "export", "--to", "data owner", "--format", "csv")
-    rows = list(csv.DictReader(io.StringIO(exported.stdout)))
-    for row in rows:
-        if row["id"] == str(asked_again):
-            row.update(answer="EUR per month", answered_by="Dr. Owner")
-    with packet.open("w", newline="", encoding="utf-8") as handle:
-        writer = csv.DictWriter(handle, fieldnames=list(rows[0]))
-        writer.writeheader()
-        writer.writerows(rows)
-    assert _ok(cli, "questions", "import", str(packet))["answered"] == [asked_again]
+    work_through_commands(cli, tmp_path)
     code, report = _report(cli)
     assert code == 0, [c for c in report["checks"] if c["status"] != "ok"]
     assert report["healthy"] is True
