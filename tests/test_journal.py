@@ -421,21 +421,38 @@ def test_redacting_one_piece_keeps_the_rest(study: Path) -> None:
 # ---- many writers ----
 
 WRITER = """
-import sys
-from typer.testing import CliRunner
+import sys, time
+from pathlib import Path
+import typer.main
 from studylog.cli.app import app
-runner = CliRunner()
+# the command tree is built once; each decision is still one command, one transaction
+command = typer.main.get_command(app)
+# start together: say ready, wait for the go
+barrier = Path(sys.argv[2])
+(barrier / f"ready-{sys.argv[1]}").touch()
+while not (barrier / "go").exists():
+    time.sleep(0.005)
 for i in range(200):
-    result = runner.invoke(app, ["log", f"decision {sys.argv[1]}-{i}", "--kind", "other"])
-    if result.exit_code != 0:
-        sys.exit(f"{i}: {result.output}")
+    try:
+        command.main(["log", f"decision {sys.argv[1]}-{i}", "--kind", "other", "--json"], prog_name="studylog")
+    except SystemExit as exc:
+        if exc.code not in (0, None):
+            sys.exit(f"decision {i} failed with exit {exc.code}")
 """
 
 
-def test_two_processes_logging_at_once_lose_nothing(study: Path) -> None:
+def test_two_processes_logging_at_once_lose_nothing(study: Path, tmp_path: Path) -> None:
+    import time
+
     env = {**os.environ, "STUDYLOG_STORE": str(study)}
-    writers = [subprocess.Popen([sys.executable, "-c", WRITER, name], env=env, stderr=subprocess.PIPE, text=True)
+    writers = [subprocess.Popen([sys.executable, "-c", WRITER, name, str(tmp_path)], env=env,
+                                stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
                for name in ("a", "b")]
+    deadline = time.monotonic() + 120
+    while not all((tmp_path / f"ready-{n}").exists() for n in "ab"):
+        assert time.monotonic() < deadline and all(w.poll() is None for w in writers), "a writer did not start"
+        time.sleep(0.01)
+    (tmp_path / "go").touch()
     for writer in writers:
         _out, err = writer.communicate(timeout=240)
         assert writer.returncode == 0, err
@@ -445,6 +462,10 @@ def test_two_processes_logging_at_once_lose_nothing(study: Path) -> None:
         creates = session.scalar(select(func.count(Change.id)).where(Change.entity == "decision"))
     assert texts == {f"decision {w}-{i}" for w in "ab" for i in range(200)}
     assert creates == 400
+    # they did run at once: the two writers' decisions interleave
+    with tx() as session:
+        order = [t.split()[1][0] for t in session.scalars(select(Decision.text).order_by(Decision.id))]
+    assert sum(1 for x, y in zip(order, order[1:]) if x != y) > 1
 
 
 def test_the_history_replays_to_every_journal_record(study: Path, tmp_path: Path) -> None:
