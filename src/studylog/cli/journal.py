@@ -30,8 +30,10 @@ KIND_NAMES = (
 )
 STATUS_HELP = "proposed, adopted, implemented, superseded or reverted."
 
-VAR_OPTION = typer.Option(None, "--var", help="A variable it is about (repeat for several; TABLE.NAME when ambiguous).")
-CODE_OPTION = typer.Option(None, "--code", help="Where it is carried out: PATH or PATH:LINE.")
+VAR_OPTION = typer.Option(
+    None, "--var", metavar="NAME", help="A variable it is about (repeat for several; TABLE.NAME when ambiguous)."
+)
+CODE_OPTION = typer.Option(None, "--code", metavar="PATH[:LINE]", help="Where it is carried out: PATH or PATH:LINE.")
 
 decision_app = typer.Typer(help="Show a decision or move it along: adopt, implement, supersede, revert.",
                            no_args_is_help=True)
@@ -77,17 +79,22 @@ def _facts_text(facts: dict[str, Any]) -> str:
 
 
 def log(
-    text: str = typer.Argument(..., help="What was decided."),
-    kind: str = typer.Option(None, "--kind", help=KIND_HELP),
+    text: str = typer.Argument(..., metavar="TEXT", help="What was decided."),
+    kind: str = typer.Option(None, "--kind", metavar="KIND", help=KIND_HELP),
     var: list[str] = VAR_OPTION,
-    why: str = typer.Option(None, "--why", help="Why: the reason for the decision."),
-    evidence: str = typer.Option(None, "--evidence", help="What it rests on (a figure, a test, an answer)."),
-    alternatives: str = typer.Option(None, "--alternatives", help="What else was considered."),
-    drop: int = typer.Option(None, "--drop", help="The drop it is based on (default: the latest checked)."),
+    why: str = typer.Option(None, "--why", metavar="TEXT", help="Why: the reason for the decision."),
+    evidence: str = typer.Option(None, "--evidence", metavar="TEXT",
+        help="What it rests on (a figure, a test, an answer)."),
+    alternatives: str = typer.Option(None, "--alternatives", metavar="TEXT",
+        help="What else was considered."),
+    drop: int = typer.Option(None, "--drop", metavar="ID",
+        help="The drop it is based on (default: the latest checked)."),
     code: str = CODE_OPTION,
-    assumption: str = typer.Option(None, "--assumption", help="Assumed missingness mechanism: MCAR, MAR or MNAR."),
-    seed: int = typer.Option(None, "--seed", help="The random seed (splits, sampling, models)."),
-    removed: int = typer.Option(None, "--removed", help="How many records it removes (exclude-cases)."),
+    assumption: str = typer.Option(None, "--assumption", metavar="MCAR|MAR|MNAR",
+        help="Assumed missingness mechanism: MCAR, MAR or MNAR."),
+    seed: int = typer.Option(None, "--seed", metavar="N", help="The random seed (splits, sampling, models)."),
+    removed: int = typer.Option(None, "--removed", metavar="N",
+        help="How many records it removes (exclude-cases)."),
     proposed: bool = typer.Option(False, "--proposed", help="Record it as proposed, not yet adopted."),
     as_json: bool = JSON_OPTION,
 ) -> None:
@@ -124,9 +131,9 @@ def _created(result: dict[str, Any], as_json: bool) -> None:
 
 
 def decisions(
-    kind: str = typer.Option(None, "--kind", help="Only this kind."),
-    var: str = typer.Option(None, "--var", help="Only decisions about this variable."),
-    status: str = typer.Option(None, "--status", help="Only this status: " + STATUS_HELP),
+    kind: str = typer.Option(None, "--kind", metavar="KIND", help="Only this kind."),
+    var: str = typer.Option(None, "--var", metavar="NAME", help="Only decisions about this variable."),
+    status: str = typer.Option(None, "--status", metavar="STATUS", help="Only this status: " + STATUS_HELP),
     as_json: bool = JSON_OPTION,
 ) -> None:
     """List the decisions, oldest first."""
@@ -162,7 +169,7 @@ def decision_show(decision_id: int = typer.Argument(..., metavar="ID"), as_json:
 @decision_app.command("adopt")
 def decision_adopt(
     decision_id: int = typer.Argument(..., metavar="ID"),
-    why: str = typer.Option(None, "--why", help="Why it is adopted."),
+    why: str = typer.Option(None, "--why", metavar="TEXT", help="Why it is adopted."),
     as_json: bool = JSON_OPTION,
 ) -> None:
     """Adopt a proposed decision."""
@@ -177,7 +184,7 @@ def decision_adopt(
 def decision_implement(
     decision_id: int = typer.Argument(..., metavar="ID"),
     code: str = CODE_OPTION,
-    why: str = typer.Option(None, "--why", help="A note on the implementation."),
+    why: str = typer.Option(None, "--why", metavar="TEXT", help="A note on the implementation."),
     as_json: bool = JSON_OPTION,
 ) -> None:
     """Mark an adopted decision as carried out in the code (again: to move its code location).
@@ -194,17 +201,20 @@ def decision_implement(
 @decision_app.command("supersede")
 def decision_supersede(
     decision_id: int = typer.Argument(..., metavar="ID"),
-    text: str = typer.Argument(..., help="The decision that replaces it."),
-    why: str = typer.Option(None, "--why", help="Why it is replaced (required)."),
-    kind: str = typer.Option(None, "--kind", help="Kind of the new decision (default: the earlier one's)."),
-    var: list[str] = typer.Option(None, "--var", help="Its variables (default: the earlier one's)."),
-    evidence: str = typer.Option(None, "--evidence", help="What the new decision rests on."),
-    alternatives: str = typer.Option(None, "--alternatives", help="What else was considered."),
-    drop: int = typer.Option(None, "--drop", help="The drop it is based on."),
+    text: str = typer.Argument(..., metavar="TEXT", help="The decision that replaces it."),
+    why: str = typer.Option(None, "--why", metavar="TEXT", help="Why it is replaced (required)."),
+    kind: str = typer.Option(None, "--kind", metavar="KIND",
+        help="Kind of the new decision (default: the earlier one's)."),
+    var: list[str] = typer.Option(None, "--var", metavar="NAME",
+        help="Its variables (default: the earlier one's)."),
+    evidence: str = typer.Option(None, "--evidence", metavar="TEXT", help="What the new decision rests on."),
+    alternatives: str = typer.Option(None, "--alternatives", metavar="TEXT",
+        help="What else was considered."),
+    drop: int = typer.Option(None, "--drop", metavar="ID", help="The drop it is based on."),
     code: str = CODE_OPTION,
-    assumption: str = typer.Option(None, "--assumption", help="MCAR, MAR or MNAR."),
-    seed: int = typer.Option(None, "--seed", help="The random seed."),
-    removed: int = typer.Option(None, "--removed", help="How many records it removes."),
+    assumption: str = typer.Option(None, "--assumption", metavar="MCAR|MAR|MNAR", help="MCAR, MAR or MNAR."),
+    seed: int = typer.Option(None, "--seed", metavar="N", help="The random seed."),
+    removed: int = typer.Option(None, "--removed", metavar="N", help="How many records it removes."),
     as_json: bool = JSON_OPTION,
 ) -> None:
     """Replace a decision by a new one; the earlier one becomes superseded and the new one links to it."""
@@ -224,7 +234,7 @@ def decision_supersede(
 @decision_app.command("revert")
 def decision_revert(
     decision_id: int = typer.Argument(..., metavar="ID"),
-    why: str = typer.Option(None, "--why", help="Why it is reverted (required)."),
+    why: str = typer.Option(None, "--why", metavar="TEXT", help="Why it is reverted (required)."),
     as_json: bool = JSON_OPTION,
 ) -> None:
     """Revert a decision: it no longer holds (it stays in the journal and its history)."""
@@ -244,7 +254,8 @@ def _changed(result: dict[str, Any], as_json: bool) -> None:
 
 @plan_app.command("freeze")
 def plan_freeze(
-    note: str = typer.Option(None, "--note", help="What the plan is, or where it is written."),
+    note: str = typer.Option(None, "--note", metavar="TEXT",
+        help="What the plan is, or where it is written."),
     as_json: bool = JSON_OPTION,
 ) -> None:
     """Record that the analysis plan is fixed now: decisions logged after it are marked post hoc."""
@@ -282,9 +293,9 @@ def _entry(kind: str, text: str, var: list[str] | None, tags: list[str] | None, 
 
 
 def note(
-    text: str = typer.Argument(..., help="The note."),
+    text: str = typer.Argument(..., metavar="TEXT", help="The note."),
     var: list[str] = VAR_OPTION,
-    tag: list[str] = typer.Option(None, "--tag", help="A tag (repeat for several)."),
+    tag: list[str] = typer.Option(None, "--tag", metavar="TAG", help="A tag (repeat for several)."),
     as_json: bool = JSON_OPTION,
 ) -> None:
     """Write a note in the journal."""
@@ -292,7 +303,7 @@ def note(
 
 
 def conclude(
-    text: str = typer.Argument(..., help="The conclusion."),
+    text: str = typer.Argument(..., metavar="TEXT", help="The conclusion."),
     var: list[str] = VAR_OPTION,
     as_json: bool = JSON_OPTION,
 ) -> None:
@@ -301,7 +312,7 @@ def conclude(
 
 
 def next_step(
-    text: str = typer.Argument(..., help="The next step."),
+    text: str = typer.Argument(..., metavar="TEXT", help="The next step."),
     as_json: bool = JSON_OPTION,
 ) -> None:
     """Record a next step or a question for further study."""
@@ -309,8 +320,9 @@ def next_step(
 
 
 def timeline(
-    since: str = typer.Option(None, "--since", help="From this date (YYYY-MM-DD) or ISO 8601 date-time on."),
-    var: str = typer.Option(None, "--var", help="Only what concerns this variable."),
+    since: str = typer.Option(None, "--since", metavar="DATE",
+        help="From this date (YYYY-MM-DD) or ISO 8601 date-time on."),
+    var: str = typer.Option(None, "--var", metavar="NAME", help="Only what concerns this variable."),
     as_json: bool = JSON_OPTION,
 ) -> None:
     """Every record and change of the study in the order it happened, with its author."""
@@ -337,10 +349,12 @@ def timeline(
 
 
 def redact(
-    kind: str = typer.Argument(..., help="decision, question, threat, note, conclusion or next."),
+    kind: str = typer.Argument(..., metavar="KIND",
+        help="decision, question, threat, note, conclusion or next."),
     record_id: int = typer.Argument(..., metavar="ID"),
-    why: str = typer.Option(None, "--why", help="Why the text is redacted (required)."),
-    text: list[str] = typer.Option(None, "--text", help="Only this piece of text (a name, a number), wherever "
+    why: str = typer.Option(None, "--why", metavar="TEXT", help="Why the text is redacted (required)."),
+    text: list[str] = typer.Option(None, "--text", metavar="TEXT",
+        help="Only this piece of text (a name, a number), wherever "
                                    "it appears in the record and its history; repeat for several. Default: "
                                    "all of the record's text."),
     as_json: bool = JSON_OPTION,

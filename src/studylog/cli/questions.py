@@ -19,10 +19,13 @@ questions_app = typer.Typer(
 
 
 def ask(
-    text: str = typer.Argument(..., help="The question."),
-    var: list[str] = typer.Option(None, "--var", help="A variable it is about (repeat for several)."),
-    to: str = typer.Option(None, "--to", help="Who can answer it: 'data owner', 'lab', a name."),
-    priority: str = typer.Option(None, "--priority", help="low, normal (the default) or high."),
+    text: str = typer.Argument(..., metavar="TEXT", help="The question."),
+    var: list[str] = typer.Option(None, "--var", metavar="NAME",
+        help="A variable it is about (repeat for several)."),
+    to: str = typer.Option(None, "--to", metavar="WHO",
+        help="Who can answer it: 'data owner', 'lab', a name."),
+    priority: str = typer.Option(None, "--priority", metavar="low|normal|high",
+        help="low, normal (the default) or high."),
     as_json: bool = JSON_OPTION,
 ) -> None:
     """Put a question to someone who knows the data; it stays open until answered or withdrawn."""
@@ -35,8 +38,9 @@ def ask(
 
 def answer(
     question_id: int = typer.Argument(..., metavar="ID"),
-    text: str = typer.Argument(..., help="The answer."),
-    by: str = typer.Option(None, "--by", help="Who answered (default: the person it was put to)."),
+    text: str = typer.Argument(..., metavar="TEXT", help="The answer."),
+    by: str = typer.Option(None, "--by", metavar="WHO",
+        help="Who answered (default: the person it was put to)."),
     as_json: bool = JSON_OPTION,
 ) -> None:
     """Record the answer to a question. A dictionary change it causes: 'var set NAME ... --question ID'."""
@@ -52,7 +56,7 @@ def answer(
 
 def withdraw(
     question_id: int = typer.Argument(..., metavar="ID"),
-    why: str = typer.Option(None, "--why", help="Why it is withdrawn (required)."),
+    why: str = typer.Option(None, "--why", metavar="TEXT", help="Why it is withdrawn (required)."),
     as_json: bool = JSON_OPTION,
 ) -> None:
     """Withdraw an open question (it stays in the journal and its history)."""
@@ -69,9 +73,10 @@ def withdraw(
 @questions_app.callback()
 def questions_list(
     ctx: typer.Context,
-    status: str = typer.Option("open", "--status", help="open (the default), answered, withdrawn or all."),
-    to: str = typer.Option(None, "--to", help="Only questions put to this person."),
-    var: str = typer.Option(None, "--var", help="Only questions about this variable."),
+    status: str = typer.Option("open", "--status", metavar="STATUS",
+        help="open (the default), answered, withdrawn or all."),
+    to: str = typer.Option(None, "--to", metavar="WHO", help="Only questions put to this person."),
+    var: str = typer.Option(None, "--var", metavar="NAME", help="Only questions about this variable."),
     as_json: bool = JSON_OPTION,
 ) -> None:
     """List the questions (open ones by default, highest priority first)."""
@@ -95,9 +100,12 @@ def questions_list(
 
 @questions_app.command("export")
 def questions_export(
-    to: str = typer.Option(None, "--to", help="The person the packet is for (default: every open question)."),
-    fmt: str = typer.Option("md", "--format", help="md (the default), csv (with an answer column) or html."),
-    output: Path = typer.Option(None, "-o", "--output", help="Write to this file (default: stdout)."),
+    to: str = typer.Option(None, "--to", metavar="WHO",
+        help="The person the packet is for (default: every open question)."),
+    fmt: str = typer.Option("md", "--format", metavar="md|csv|html",
+        help="md (the default), csv (with an answer column) or html."),
+    output: Path = typer.Option(None, "-o", "--output", metavar="FILE",
+        help="Write to this file (default: stdout)."),
     as_json: bool = JSON_OPTION,
 ) -> None:
     """Write the packet one person needs to answer their open questions.
@@ -130,8 +138,9 @@ def questions_export(
 
 @questions_app.command("import")
 def questions_import(
-    file: Path = typer.Argument(..., help="The packet CSV with its answer column filled in."),
-    by: str = typer.Option(None, "--by", help="Who answered, where the file has no answered_by cell "
+    file: Path = typer.Argument(..., metavar="FILE", help="The packet CSV with its answer column filled in."),
+    by: str = typer.Option(None, "--by", metavar="WHO",
+        help="Who answered, where the file has no answered_by cell "
                            "(default: the person each question was put to)."),
     as_json: bool = JSON_OPTION,
 ) -> None:

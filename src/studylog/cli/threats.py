@@ -26,12 +26,15 @@ def _row(t: dict[str, Any]) -> list[Any]:
 
 @threat_app.command("add")
 def threat_add(
-    text: str = typer.Argument(..., help="The threat."),
-    kind: str = typer.Option(None, "--kind", help="Required: " + KIND_HELP),
-    var: list[str] = typer.Option(None, "--var", help="A variable it concerns (repeat for several)."),
-    decision: list[int] = typer.Option(None, "--decision", help="A decision it concerns (repeat)."),
-    severity: str = typer.Option(None, "--severity", help="low, medium (the default) or high."),
-    mitigation: str = typer.Option(None, "--mitigation", help="What is done about it."),
+    text: str = typer.Argument(..., metavar="TEXT", help="The threat."),
+    kind: str = typer.Option(None, "--kind", metavar="KIND", help="Required: " + KIND_HELP),
+    var: list[str] = typer.Option(None, "--var", metavar="NAME",
+        help="A variable it concerns (repeat for several)."),
+    decision: list[int] = typer.Option(None, "--decision", metavar="ID",
+        help="A decision it concerns (repeat)."),
+    severity: str = typer.Option(None, "--severity", metavar="low|medium|high",
+        help="low, medium (the default) or high."),
+    mitigation: str = typer.Option(None, "--mitigation", metavar="TEXT", help="What is done about it."),
     as_json: bool = JSON_OPTION,
 ) -> None:
     """Enter a threat to validity in the register."""
@@ -46,10 +49,11 @@ def threat_add(
 @threat_app.command("set")
 def threat_set(
     threat_id: int = typer.Argument(..., metavar="ID"),
-    mitigation: str = typer.Option(None, "--mitigation", help="What is done about it ('' clears it)."),
-    status: str = typer.Option(None, "--status", help="open, mitigated or accepted."),
-    severity: str = typer.Option(None, "--severity", help="low, medium or high."),
-    why: str = typer.Option(None, "--why", help="Why it changes (required)."),
+    mitigation: str = typer.Option(None, "--mitigation", metavar="TEXT",
+        help="What is done about it ('' clears it)."),
+    status: str = typer.Option(None, "--status", metavar="STATUS", help="open, mitigated or accepted."),
+    severity: str = typer.Option(None, "--severity", metavar="low|medium|high", help="low, medium or high."),
+    why: str = typer.Option(None, "--why", metavar="TEXT", help="Why it changes (required)."),
     as_json: bool = JSON_OPTION,
 ) -> None:
     """Change a threat's mitigation, status or severity."""
@@ -65,9 +69,11 @@ def threat_set(
 
 
 def threats_list(
-    kind: str = typer.Option(None, "--kind", help="Only this kind: internal, external, construct, statistical."),
-    status: str = typer.Option(None, "--status", help="Only this status: open, mitigated, accepted."),
-    var: str = typer.Option(None, "--var", help="Only threats concerning this variable."),
+    kind: str = typer.Option(None, "--kind", metavar="KIND",
+        help="Only this kind: internal, external, construct, statistical."),
+    status: str = typer.Option(None, "--status", metavar="STATUS",
+        help="Only this status: open, mitigated, accepted."),
+    var: str = typer.Option(None, "--var", metavar="NAME", help="Only threats concerning this variable."),
     as_json: bool = JSON_OPTION,
 ) -> None:
     """The threats-to-validity register."""
