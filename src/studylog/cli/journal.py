@@ -28,6 +28,8 @@ KIND_NAMES = (
     "exclude-cases", "exclude-variables", "select-features", "extract-features", "sampling", "split",
     "model", "metric", "other",
 )
+# records the timeline names by their name rather than their number
+NAMED_ENTITIES = ("variable", "table", "rule", "version", "study")
 STATUS_HELP = "proposed, adopted, implemented, superseded or reverted."
 
 VAR_OPTION = typer.Option(
@@ -335,13 +337,16 @@ def timeline(
         return
     rows = []
     for e in events:
-        what = e["entity"] + (f" {e['record']}" if e["record"] is not None else "")
-        if e["kind"]:
+        named = e["entity"] in NAMED_ENTITIES and e["text"]
+        what = e["entity"] + (f" {e['text']}" if named else f" {e['record']}" if e["record"] is not None else "")
+        if e["entity"] == "entry" and e["kind"]:
+            what = f"{e['kind']} {e['record']}"
+        elif e["kind"]:
             what += f" ({e['kind']})"
-        detail = e["text"] or ""
+        detail = "" if named else e["text"] or ""
         if e["field"] and e["action"] != "create":
             detail = f"{e['field']}: {render.cell(e['old'])} -> {render.cell(e['new'])}" + (
-                f" - {e['text']}" if e["text"] and e["entity"] not in ("variable", "table") else "")
+                f" - {detail}" if detail else "")
         if e["why"]:
             detail += f" (why: {e['why']})"
         rows.append([e["at"][:19].replace("T", " "), e["author"], what, e["action"], detail])
