@@ -1,9 +1,11 @@
 """Crash safety: a command killed with SIGKILL at any moment leaves a healthy store holding all of its
 writes or none of them.
 
-Each command is first run to the end once (its duration D, and the store it leaves: "all"); then it is
-started again from the same store and killed after a random delay in [0.15 D, 1.05 D] — in the middle of
-reading its input, of writing, of committing, or just after. Afterwards ``studylog doctor`` must pass and
+Each command is first run to the end once (its duration D, the peak size of its write-ahead log, and the
+store it leaves: "all"); then it is started again from the same store and killed, three times after a
+random delay in [0.15 D, 1.05 D] (while it starts, reads its input, computes, writes, or just after it
+finished), and twice while it writes: as soon as its log holds a first frame, and when the log reaches
+half of its peak. Afterwards ``studylog doctor`` must pass and
 the number of records in every table must equal either the store before ("none") or the store after the
 complete run ("all"). The kill points tried and the outcomes are printed (``pytest -s``).
 """
@@ -26,7 +28,8 @@ from studylog.store import schema
 from studylog.store.models import Base
 from studylog.store.session import StoreLocation, create_store, dispose_engines, transaction
 
-KILL_POINTS = 4
+RANDOM_POINTS = 3
+WRITE_POINTS = 2
 
 
 def _let_go() -> None:
@@ -59,7 +62,7 @@ class Outcome:
     killed_after_writing_began: int = 0
     none: int = 0
     all: int = 0
-    delays: list[float] = field(default_factory=list)
+    delays: list[dict] = field(default_factory=list)
 
     def line(self) -> str:
         return (f"{self.command}: run {self.duration:.2f} s; {self.tried} kill points, {self.killed} killed "
@@ -67,51 +70,77 @@ class Outcome:
                 f"outcomes: {self.none} none, {self.all} all")
 
 
+def _run_and_kill(args: list[str], wal: Path, *, delay: float | None = None,
+                  wal_bytes: int | None = None) -> tuple[bool, int]:
+    """Run the command; SIGKILL it after ``delay`` seconds or once its log holds ``wal_bytes``.
+
+    Returns whether it was killed while running, and the size of the write-ahead log at that moment
+    (its peak when it was not killed).
+    """
+    child = subprocess.Popen(_command(*args), stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    deadline = None if delay is None else time.monotonic() + delay
+    peak = 0
+    while child.poll() is None:
+        try:
+            size = wal.stat().st_size
+        except FileNotFoundError:
+            size = 0
+        peak = max(peak, size)
+        if (deadline is not None and time.monotonic() >= deadline) or (
+                wal_bytes is not None and size >= wal_bytes):
+            child.send_signal(signal.SIGKILL)
+            child.wait(timeout=60)
+            return True, size
+        time.sleep(0.001)
+    return False, peak
+
+
 def kill_at_random_points(  # type: ignore[no-untyped-def]
     cli, store: Path, args: list[str], name: str, seed: int, *,
     doctor_args: tuple[str, ...] = (), cleanup=lambda: None,
 ) -> tuple[Outcome, dict[str, int], dict[str, int]]:
-    """Run ``args`` once to the end, then kill it at KILL_POINTS random moments; check each outcome."""
+    """Run ``args`` once to the end, then kill it at RANDOM_POINTS random moments and at WRITE_POINTS
+    moments while it writes its log (the first frame, half of its peak); check each outcome."""
     _let_go()
     pristine = store.read_bytes()
-    assert not Path(f"{store}-wal").exists() or Path(f"{store}-wal").stat().st_size == 0
+    wal = Path(f"{store}-wal")
+    assert not wal.exists() or wal.stat().st_size == 0
     before = _counts(store)
     outcome = Outcome(name)
 
     began = time.monotonic()
-    complete = subprocess.run(_command(*args), capture_output=True, text=True, timeout=300, check=False)
+    killed, peak = _run_and_kill(args, wal)
     outcome.duration = time.monotonic() - began
-    assert complete.returncode == 0, complete.stderr
+    assert not killed
     after = _counts(store)
-    assert after != before  # the command writes something, so "all" and "none" differ
+    assert after != before  # the command wrote, so "all" and "none" differ
+    assert cli(*doctor_args, "doctor").exit_code == 0
+    _let_go()
 
     rng = random.Random(seed)
-    for _ in range(KILL_POINTS):
+    triggers: list[dict[str, float | int]] = [
+        {"delay": round(rng.uniform(0.15, 1.05) * outcome.duration, 3)} for _ in range(RANDOM_POINTS)]
+    triggers += [{"wal_bytes": 1}, {"wal_bytes": max(1, peak // 2)}][:WRITE_POINTS]
+    for trigger in triggers:
         _reset(store, pristine)
         cleanup()
-        delay = rng.uniform(0.15, 1.05) * outcome.duration
-        outcome.delays.append(round(delay, 3))
-        child = subprocess.Popen(_command(*args), stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-        time.sleep(delay)
         outcome.tried += 1
-        if child.poll() is None:
-            wal = Path(f"{store}-wal")
-            if wal.exists() and wal.stat().st_size > 0:
-                outcome.killed_after_writing_began += 1
-            child.send_signal(signal.SIGKILL)
+        killed, size = _run_and_kill(args, wal, **trigger)  # type: ignore[arg-type]
+        outcome.delays.append(trigger)
+        if killed:
             outcome.killed += 1
-        child.wait(timeout=300)
+            outcome.killed_after_writing_began += size > 0
         doctor = cli(*doctor_args, "doctor", "--json")
         _let_go()
         assert doctor.exit_code == 0, doctor.stdout
         found = _counts(store)
-        assert found in (before, after), (delay, found)
+        assert found in (before, after), (trigger, found)
         if found == before:
             outcome.none += 1
         else:
             outcome.all += 1
     assert outcome.killed >= 1  # at least one kill landed while the command was running
-    print(f"\n{outcome.line()}; delays {outcome.delays}")
+    print(f"\n{outcome.line()}; log peak {peak} bytes; triggers {outcome.delays}")
     return outcome, before, after
 
 
