@@ -99,3 +99,12 @@ def test_import_with_an_unknown_id_changes_nothing(cli, study: Path, tmp_path: P
 def test_help(cli, args: list[str]) -> None:  # type: ignore[no-untyped-def]
     result = cli(*args)
     assert result.exit_code == 0 and "Usage" in result.stdout
+
+
+def test_an_empty_packet_says_so_on_stderr(cli, study: Path) -> None:  # type: ignore[no-untyped-def]
+    cli("ask", "one?", "--to", "lab")
+    result = cli("questions", "export", "--to", "nobody", "--format", "csv")
+    assert result.exit_code == 0
+    assert result.stdout.startswith("id,")
+    assert len(result.stdout.strip().splitlines()) == 1
+    assert "no open questions for nobody" in result.stderr

@@ -128,6 +128,8 @@ def questions_export(
             from studylog.errors import UsageError
 
             raise UsageError(f"cannot write {output}: {exc.strerror}") from exc
+    if content["questions"] == 0:
+        render.warn(f"no open questions{f' for {to}' if to else ''}: the packet is empty")
     if as_json:
         render.emit_json({**content, "file": str(output) if output else None, "format": fmt})
     elif output is not None:
