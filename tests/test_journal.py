@@ -349,6 +349,9 @@ def _store_bytes(path: Path) -> bytes:
     return data
 
 
+# SQLite keeps replaced bytes in free page space, on free-list pages and in old WAL frames until the file is
+# rebuilt (SQLite documentation: PRAGMA secure_delete, VACUUM, wal_checkpoint(TRUNCATE); from memory), so
+# the test reads the bytes of the store and its write-ahead log, not the rows.
 @pytest.mark.parametrize("kind", ["decision", "note", "question", "threat"])
 def test_redaction_leaves_no_trace_of_the_text(study: Path, kind: str) -> None:
     from studylog import questions, threats

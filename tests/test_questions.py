@@ -128,7 +128,8 @@ def test_packet_groups_by_variable_with_its_facts(study: Path) -> None:
     assert (age["label"], age["unit"], age["missing_codes"]) == ("Age at visit", "years", ["-99=refused"])
     assert [q["id"] for q in age["questions"]] == [ids["age"]]
     view = age["last_drop"]
-    # counts below 5 are withheld: 3 refusals, 3 range errors; 5 missing is shown
+    # counts below 5 are withheld (the minimum cell size of 5 is common practice in statistical disclosure
+    # control): 3 refusals, 3 range errors; 5 missing is shown
     assert view["missing"] == 5 and view["missing_codes"] == [{"code": "-99", "count": "<5"}]
     assert view["findings"][0]["count"] == "<5" and view["findings"][0]["values"] == ["-4", "-1", "130"]
     assert (view["min"], view["median"], view["max"]) == (18, 54, 97)
