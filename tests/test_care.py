@@ -408,3 +408,24 @@ def test_doctor_finds_every_history_written_by_the_commands_sound(cli, study: Pa
     code, report = _report(cli)
     assert code == 0, [c for c in report["checks"] if c["status"] != "ok"]
     assert report["healthy"] is True
+
+
+def test_doctor_on_a_database_server_url_runs_what_applies(study: Path) -> None:
+    # a store reached by URL only (as a PostgreSQL one is): no file checks, but schema, links, history
+    _dictionary(_loc(study))
+    report = care.doctor(StoreLocation(f"sqlite:///{study}", None))
+    names = {c["name"]: c["status"] for c in report["checks"]}
+    assert names == {"file": "ok", "schema": "ok", "links": "ok", "history": "ok"}
+    assert report["healthy"] is True and report["size_bytes"] is None
+    with sqlite3.connect(study) as raw:
+        raw.execute("UPDATE variables SET label = 'edited by hand' WHERE name = 'bmi'")
+    report = care.doctor(StoreLocation(f"sqlite:///{study}", None))
+    assert report["healthy"] is False and report["problems"] == 1
+
+
+def test_backup_and_restore_of_a_server_store_point_to_the_servers_tools(cli, tmp_path: Path,
+                                                                         monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setenv("STUDYLOG_STORE", "postgresql+psycopg://analyst@db.invalid/study")
+    for args in (["backup", str(tmp_path / "b.db")], ["restore", str(tmp_path / "b.db"), "--force"]):
+        result = cli(*args)
+        assert result.exit_code == 2 and "dump" in result.stderr, result.output
