@@ -251,3 +251,16 @@ def test_nothing_is_deleted_by_any_operation(session: Session) -> None:
     assert session.scalar(select(func.count()).select_from(Variable)) == 2
     assert session.scalar(select(func.count()).select_from(DataTable)) == 1
     assert session.scalar(select(func.count()).select_from(Change)) >= 5
+
+
+def test_names_longer_than_the_store_holds_are_refused(study) -> None:  # type: ignore[no-untyped-def]
+    import pytest
+
+    from studylog import dictionary
+    from studylog.errors import InvalidValue
+    from studylog.store.session import locate, transaction
+
+    with transaction(locate(), write=True) as session:
+        with pytest.raises(InvalidValue, match="longer than 255"):
+            dictionary.add_variable(session, "x" * 256, {"type": "text"})
+        dictionary.add_variable(session, "y" * 255, {"type": "text"})

@@ -168,3 +168,11 @@ def test_a_csvw_document_is_handed_to_the_csvw_module(tmp_path: Path, monkeypatc
     assert received == [{"@context": "http://www.w3.org/ns/csvw", "tables": []}]
     assert result["format"] == "csvw"
     assert '"@context": "http://www.w3.org/ns/csvw"' in exported
+
+
+def test_a_json_file_without_a_variables_list_is_refused(cli, study, tmp_path) -> None:  # type: ignore[no-untyped-def]
+    path = tmp_path / "other.json"
+    path.write_text('{"format": "something else", "rows": []}', encoding="utf-8")
+    result = cli("var", "import", str(path))
+    assert result.exit_code == 2
+    assert "'variables' list" in result.stderr

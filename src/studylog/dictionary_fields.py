@@ -368,6 +368,9 @@ def check_entry(entry: dict[str, Any]) -> dict[str, Any]:
     return entry
 
 
+MAX_NAME = 255
+
+
 def check_name(name: Any, what: str = "variable") -> str:
     if not isinstance(name, str) or not name.strip():
         raise InvalidValue(f"a {what} needs a name")
@@ -375,6 +378,9 @@ def check_name(name: Any, what: str = "variable") -> str:
         raise InvalidValue(f"{what} name '{name}' has leading or trailing spaces")
     if any(ord(ch) < 32 for ch in name):
         raise InvalidValue(f"{what} name {name!r} contains a control character")
+    if len(name) > MAX_NAME:
+        # the store's name columns hold 255 characters (PostgreSQL enforces it; SQLite would not)
+        raise InvalidValue(f"{what} name '{name[:40]}...' is longer than {MAX_NAME} characters")
     return name
 
 

@@ -184,7 +184,8 @@ def _from_cell(field: str, text: str) -> Any:
 def _json_entries(path: str, document: Any) -> tuple[list[dict[str, Any]], list[tuple[int, dict[str, Any]]]]:
     if isinstance(document, list):
         document = {"variables": document}
-    if not isinstance(document, dict) or not isinstance(document.get("variables", []), list):
+    if not isinstance(document, dict) or "variables" not in document \
+            or not isinstance(document["variables"], list):
         raise InputFileError(path, "expected an object with a 'variables' list (as 'var export --format json' writes)")
     tables = document.get("tables", [])
     if not isinstance(tables, list) or not all(isinstance(t, dict) and t.get("name") for t in tables):
