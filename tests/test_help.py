@@ -43,3 +43,21 @@ def test_every_command_has_help(path: tuple[str, ...], command: Any) -> None:
     assert result.exit_code == 0, result.output
     # the help is re-wrapped to the terminal's width; compare its opening words
     assert " ".join(text.split()[:5]) in " ".join(result.stdout.split())
+
+
+def test_the_command_map_matches_what_each_module_registers() -> None:
+    import importlib
+
+    import typer
+
+    from studylog.cli.app import COMMAND_MODULES, _module_of
+
+    for module, names in COMMAND_MODULES.items():
+        probe = typer.Typer()
+        importlib.import_module(module).register(probe)
+        found = [c.name or c.callback.__name__ for c in probe.registered_commands]
+        found += [g.name for g in probe.registered_groups]
+        assert sorted(found) == sorted(names), module
+    assert _module_of(["--store", "x.db", "log", "text"]) == "studylog.cli.journal"
+    assert _module_of(["--debug", "var", "list"]) == "studylog.cli.variables"
+    assert _module_of(["--help"]) is None and _module_of(["nonsense"]) is None

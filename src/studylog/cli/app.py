@@ -65,24 +65,12 @@ class StudylogGroup(TyperGroup):
         sys.exit(code if isinstance(code, int) else 0)
 
 
-app = typer.Typer(
-    cls=StudylogGroup,
-    name="studylog",
-    help="The working memory of a data-analysis study: dictionary, journal, questions, threats, drops.",
-    no_args_is_help=True,
-    pretty_exceptions_enable=False,
-    add_completion=False,
-    rich_markup_mode=None,
-)
-
-
 def _version(value: bool) -> None:
     if value:
         sys.stdout.write(f"studylog {__version__}\n")
         raise typer.Exit(0)
 
 
-@app.callback()
 def main(
     store: str = typer.Option(
         None,
@@ -102,35 +90,73 @@ def main(
 
 
 # Each command module has a register(app) function. Modules import only light modules at the top;
-# pandas, pyarrow and scipy are imported inside the commands that compute. One module a line.
-COMMAND_MODULES = [
-    "studylog.cli.study",
-    "studylog.cli.tables",
-    "studylog.cli.variables",
-    "studylog.cli.profile",
-    "studylog.cli.draft",
-    "studylog.cli.care",
-    "studylog.cli.journal",
-    "studylog.cli.questions",
-    "studylog.cli.threats",
-    "studylog.cli.report",
-    "studylog.cli.rules",
-    "studylog.cli.check",
-    "studylog.cli.drops",
-    "studylog.cli.demo",
-]
+# pandas, pyarrow and scipy are imported inside the commands that compute. One module a line, with the
+# top-level names it registers, so that a run loads only the module of the command it runs
+# (tests/test_help.py checks that this map matches what the modules register).
+COMMAND_MODULES: dict[str, tuple[str, ...]] = {
+    "studylog.cli.study": ("init", "status"),
+    "studylog.cli.tables": ("table",),
+    "studylog.cli.variables": ("var",),
+    "studylog.cli.profile": ("profile",),
+    "studylog.cli.draft": ("draft",),
+    "studylog.cli.care": ("doctor", "backup", "restore", "dump", "load"),
+    "studylog.cli.journal": ("log", "decisions", "note", "conclude", "next", "timeline", "redact",
+                             "decision", "plan"),
+    "studylog.cli.questions": ("ask", "answer", "withdraw", "questions"),
+    "studylog.cli.threats": ("threats", "threat"),
+    "studylog.cli.report": ("report",),
+    "studylog.cli.rules": ("rule",),
+    "studylog.cli.check": ("check",),
+    "studylog.cli.drops": ("drops", "drift", "drop"),
+    "studylog.cli.demo": ("demo",),
+}
 
 
-def _register() -> None:
+def build_app(modules: list[str] | None = None) -> typer.Typer:
+    """The root app with the commands of ``modules`` (all of them by default)."""
     import importlib
 
-    for name in COMMAND_MODULES:
-        importlib.import_module(name).register(app)
+    root = typer.Typer(
+        cls=StudylogGroup,
+        name="studylog",
+        help="The working memory of a data-analysis study: dictionary, journal, questions, threats, drops.",
+        no_args_is_help=True,
+        pretty_exceptions_enable=False,
+        add_completion=False,
+        rich_markup_mode=None,
+    )
+    root.callback()(main)
+    for name in COMMAND_MODULES if modules is None else modules:
+        importlib.import_module(name).register(root)
+    return root
 
 
-_register()
+def _module_of(argv: list[str]) -> str | None:
+    """The module registering the command in ``argv``, or None (help, version, unknown: load all)."""
+    words = iter(argv)
+    for word in words:
+        if word == "--store":
+            next(words, None)
+        elif word.startswith("-"):
+            continue
+        else:
+            for module, names in COMMAND_MODULES.items():
+                if word in names:
+                    return module
+            return None
+    return None
+
+
+def __getattr__(name: str) -> typer.Typer:
+    # ``from studylog.cli.app import app`` (tests, the demo) gets the app with every command
+    if name == "app":
+        built = build_app()
+        globals()["app"] = built
+        return built
+    raise AttributeError(name)
 
 
 def run() -> None:
-    """Console-script entry point."""
-    app()
+    """Console-script entry point: builds only the command being run, for a fast start."""
+    module = _module_of(sys.argv[1:])
+    build_app([module] if module else None)()
