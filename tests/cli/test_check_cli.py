@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import re
 from pathlib import Path
 
 import pytest
@@ -108,6 +109,59 @@ def test_human_output_and_failure_line(cli, visits) -> None:  # type: ignore[no-
     assert "'Male' resembles 'male'" in result.stdout
     assert "checks failed: 5 error(s), 1 warning(s)" in result.stderr
     assert "Traceback" not in result.output
+    # examples: row, key and quoted value; the value left out where it is the key; masked stays masked
+    assert "row 3 V-1: '130'" in result.stdout
+    assert "row 2 V-2: '1.5'" in result.stdout
+    assert f"row 4 V-4: {MASK}" in result.stdout and "5550000" not in result.stdout
+    assert re.search(r"visit_id key +row 3 V-1 *\n", result.stdout)
+    # nothing to compare with: one line, no empty drift or records dumps
+    assert "no earlier drop of this table to compare with" in result.stdout
+    assert "drift" not in result.stdout and "records" not in result.stdout
+    assert "errors=" not in result.stdout and "value=" not in result.stdout
+
+
+def test_human_output_of_the_comparison(cli, visits) -> None:  # type: ignore[no-untyped-def]
+    write("a.csv", CLEAN)
+    assert cli("check", "a.csv").exit_code == 0
+    # V-2's age changes, V-3 is new, V-1 is kept; a new level 'other' appears in sex
+    write("b.csv", "visit_id,age,sex,phone\nV-1,34,female,555-1234\nV-2,52,male,555-9876\n"
+                   "V-3,40,other,555-1111\n")
+    result = cli("check", "b.csv")
+    assert result.exit_code == 1, result.output
+    out = result.stdout
+    assert "compared with the earlier drop 1:" in out
+    assert "records compared with drop 1: 1 new, 0 vanished, 1 changed (age 1)" in out
+    assert "1 unchanged" in out
+    assert "V-3 (row 3)" in out and "V-2 (row 2; age)" in out
+    # the drift table lists sex (a new level) and names the variables without a distribution
+    assert "+ other" in out
+    assert "not compared by distribution (identifiers, dates, text): visit_id" in out
+    assert "key=" not in out and "variable=" not in out and "n_earlier" not in out
+    document = json.loads(cli("check", "b.csv", "--no-record", "--against", "1", "--json").stdout)
+    assert document["records"]["changed_columns"] == {"age": 1}
+
+
+def test_long_level_lists_are_shortened_for_the_screen_only(cli, study) -> None:  # type: ignore[no-untyped-def]
+    levels = ",".join(f"level{i}" for i in range(1, 11))
+    assert cli("var", "add", "grade", "--type", "categorical", "--levels", levels).exit_code == 0
+    write("g.csv", "grade\nlevel1\nlevel99\n")
+    human = cli("check", "g.csv", "--no-record")
+    assert human.exit_code == 1
+    assert "[level1, level2, level3, level4, ...]" in human.stdout
+    assert "level6" not in human.stdout
+    document = json.loads(cli("check", "g.csv", "--no-record", "--json").stdout)
+    assert "level6" in document["findings"][0]["message"]
+
+
+def test_short_message_keeps_ranges_and_patterns() -> None:
+    from studylog.cli.check import MESSAGE_LIMIT, short_message
+
+    assert short_message("3 values outside the possible range [16, 110]") == \
+        "3 values outside the possible range [16, 110]"
+    assert short_message("not matching the pattern ^[^@ ]+@[^@ ]+$") == "not matching the pattern ^[^@ ]+@[^@ ]+$"
+    assert short_message("levels [a, b, c, d, e, f, ...] (e.g. 'x')") == "levels [a, b, c, d, ...] (e.g. 'x')"
+    long = short_message("x" * 400)
+    assert len(long) == MESSAGE_LIMIT and long.endswith("...")
 
 
 def test_no_record_and_already_recorded(cli, visits) -> None:  # type: ignore[no-untyped-def]

@@ -9,9 +9,13 @@ import typer
 
 from studylog.cli import render
 from studylog.cli.common import JSON_OPTION, reading, writing
+from studylog.safety import MASK
 
 SEVERITY_STYLE = {"error": "red", "warning": "yellow", "info": "dim"}
-SHOWN_ROWS = 5
+SEVERITY_ORDER = {"error": 0, "warning": 1, "info": 2}
+SHOWN_ROWS = 3
+SHOWN_LEVELS = 4
+MESSAGE_LIMIT = 160
 
 
 def check(
@@ -67,8 +71,6 @@ def check(
 
 
 def _show(document: dict[str, Any]) -> None:
-    from rich.markup import escape
-
     drop = document["drop"]
     against = f"dictionary version {drop['dictionary']}" if drop["dictionary"] else (
         f"the current dictionary (change {drop['dictionary_change']})" if drop["dictionary_change"]
@@ -78,34 +80,81 @@ def _show(document: dict[str, Any]) -> None:
     if document["recorded"]:
         head = f"drop {drop['id']} recorded; " + head
     render.say(head)
-    findings = document["findings"]
+    findings = sorted(document["findings"], key=lambda f: SEVERITY_ORDER.get(f["severity"], 3))
     if findings:
-        from rich.table import Table
-
-        grid = Table(show_lines=False)
-        for name in ("severity", "variable", "rule", "count", "rows", "keys", "values", "message"):
-            grid.add_column(name, overflow="fold")
-        for f in findings:
-            style = SEVERITY_STYLE.get(f["severity"], "")
-            grid.add_row(
-                f"[{style}]{f['severity']}[/{style}]" if style else f["severity"],
-                escape(f["variable"] or ""), escape(f["rule"]), str(f["count"]),
-                escape(_few(f["rows"])), escape(_few(f["keys"])), escape(_few(f["values"])),
-                escape(f["message"]),
-            )
-        render.console.print(grid)
+        _findings(findings)
     else:
         render.say("no findings: the file agrees with the dictionary")
-    for part in ("drift", "records"):
-        if part in document:
-            render.say(f"{part}: {render.cell(document[part])}")
+    _comparison(document)
     render.say(f"{document['errors']} error(s), {document['warnings']} warning(s)")
 
 
-def _few(items: list[Any]) -> str:
-    shown = ["" if i is None else str(i) for i in items[:SHOWN_ROWS]]
-    more = f" (+{len(items) - SHOWN_ROWS})" if len(items) > SHOWN_ROWS else ""
-    return ", ".join(shown) + more
+def _findings(findings: list[dict[str, Any]]) -> None:
+    """One line per finding (the message shortened for the screen), then a few example rows of each."""
+    from rich.text import Text
+
+    render.compact_table(
+        [render.Column("severity", wrap=False), render.Column("variable", wrap=False),
+         render.Column("rule", wrap=False), render.Column("count", numeric=True), render.Column("message")],
+        ([Text(f["severity"], style=SEVERITY_STYLE.get(f["severity"], "")), f["variable"] or "(rows)",
+          f["rule"], f["count"], short_message(f["message"])] for f in findings),
+    )
+    examples = [(f"{f['variable'] or '(rows)'} {f['rule']}", _examples(f)) for f in findings if f["rows"]]
+    if examples:
+        render.say(f"examples (data rows, the header not counted; first {SHOWN_ROWS} of each):")
+        render.fields(("  " + name, text) for name, text in examples)
+
+
+def short_message(message: str) -> str:
+    """The message for the screen: bracketed lists of more than a few items cut (--json keeps it whole)."""
+    import re
+
+    def cut(match: re.Match[str]) -> str:
+        items = [i.strip() for i in match.group(1).split(",")]
+        items = [i for i in items if i not in ("...", "…")]
+        if len(items) <= SHOWN_LEVELS + 1:
+            return match.group(0)
+        return f"[{', '.join(items[:SHOWN_LEVELS])}, ...]"
+
+    text = re.sub(r"\[([^\[\]]*,[^\[\]]*)\]", cut, message)
+    return text if len(text) <= MESSAGE_LIMIT else text[: MESSAGE_LIMIT - 3].rstrip() + "..."
+
+
+def _value(value: Any) -> str:
+    if value is None:
+        return "(empty)"
+    text = str(value)
+    return text if text == MASK else repr(text)
+
+
+def _examples(finding: dict[str, Any]) -> str:
+    """``row 12 V-0012: '-4'`` for the first rows; the value is left out where it is the key itself."""
+    rows, keys, values = finding["rows"], finding["keys"] or [], finding["values"] or []
+    shown = []
+    for i, row in enumerate(rows[:SHOWN_ROWS]):
+        key = keys[i] if i < len(keys) else None
+        value = values[i] if i < len(values) else None
+        text = f"row {row}" + (f" {key}" if key is not None else "")
+        if i < len(values) and not (key is not None and str(value) == str(key)):
+            text += f": {_value(value)}"
+        shown.append(text)
+    more = finding["count"] - len(shown)
+    return "; ".join(shown) + (f"; ... {more} more" if more > 0 else "")
+
+
+def _comparison(document: dict[str, Any]) -> None:
+    """Drift (only the variables that moved) and the record comparison, or one line when there is none."""
+    from studylog.cli.drops import drift_view, records_view
+
+    records = document.get("records")
+    against = document["drop"].get("against") or (records or {}).get("against")
+    if against is None and not document.get("drift"):
+        render.say("no earlier drop of this table to compare with")
+        return
+    render.say(f"compared with the earlier drop {against}:" if against is not None
+               else "compared with the table's latest drop:")
+    drift_view(document.get("drift") or [], only_notable=True, detail=False)
+    records_view(records, examples=3)
 
 
 class _progress:

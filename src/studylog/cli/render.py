@@ -10,10 +10,13 @@ import json
 import os
 import sys
 from collections.abc import Iterable, Sequence
+from dataclasses import dataclass
 from typing import Any
 
+from rich import box
 from rich.console import Console
 from rich.table import Table
+from rich.text import Text
 
 def _width() -> int | None:
     """Rich's own width on a terminal; 120 columns when piped (rich would use 80), unless COLUMNS says."""
@@ -71,6 +74,43 @@ def table(
         grid.add_column(name, overflow="fold")
     for row in rows:
         grid.add_row(*(escape(cell(v)) for v in row))
+    console.print(grid)
+
+
+@dataclass(frozen=True)
+class Column:
+    """A column of ``compact_table``: numbers are right-aligned; ``width`` caps text; ``wrap=False`` keeps
+    a cell on one line (names). Headers of numeric columns may wrap, their numbers (one word) do not."""
+
+    name: str
+    numeric: bool = False
+    width: int | None = None
+    wrap: bool = True
+    min_width: int | None = None
+
+
+def compact_table(
+    columns: Sequence[Column | str],
+    rows: Iterable[Sequence[Any]],
+    *,
+    title: str | None = None,
+) -> None:
+    """A table for narrow terminals: a rule under the header, no borders, columns two spaces apart.
+
+    Cells are escaped like ``table``'s; a ``rich.text.Text`` cell is printed as it is (already safe),
+    which lets a caller colour one cell.
+    """
+    from rich.markup import escape
+
+    grid = Table(title=escape(title) if title else None, title_justify="left", box=box.SIMPLE_HEAD,
+                 pad_edge=False, padding=(0, 1), show_edge=False, title_style="bold")
+    for spec in columns:
+        spec = Column(spec) if isinstance(spec, str) else spec
+        grid.add_column(spec.name, justify="right" if spec.numeric else "left",
+                        no_wrap=not spec.wrap, max_width=spec.width,
+                        min_width=spec.min_width, overflow="fold")
+    for row in rows:
+        grid.add_row(*(v if isinstance(v, Text) else escape(cell(v)) for v in row))
     console.print(grid)
 
 
