@@ -309,3 +309,16 @@ def test_any_question_and_answer_survive_the_packet(study: Path, tmp_path: Path,
     with tx() as session:
         questions.import_answers(session, str(path))
         assert session.get(Question, qid).answer == answer.strip()
+
+
+def test_an_answer_file_with_a_quote_left_open_is_refused(tmp_path) -> None:  # type: ignore[no-untyped-def]
+    import pytest
+
+    from studylog.errors import InputFileError
+    from studylog.packet import read_answers
+
+    path = tmp_path / "answers.csv"
+    path.write_text('id,answer\n1,"fine"\n2,"never closed\n3,swallowed\n', encoding="utf-8")
+    with pytest.raises(InputFileError) as caught:
+        read_answers(path)
+    assert caught.value.line == 3

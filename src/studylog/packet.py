@@ -321,7 +321,9 @@ def read_answers(path: str | Path) -> list[AnswerRow]:
         raise InputFileError(name, "not UTF-8 text; save the packet as CSV (UTF-8)") from exc
     except OSError as exc:
         raise InputFileError(name, f"cannot be read: {exc.strerror}") from exc
-    reader = csv.reader(io.StringIO(text, newline=""), delimiter=_delimiter(text.splitlines()[0] if text else ""))
+    # strict: a quote left open at the end of the file is an error, not an answer that swallows the rest
+    reader = csv.reader(io.StringIO(text, newline=""), delimiter=_delimiter(text.splitlines()[0] if text else ""),
+                        strict=True)
     try:
         header = [safety.restore_cell(h).strip().lower() for h in next(reader, [])]
     except csv.Error as exc:
