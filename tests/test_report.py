@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 from html.parser import HTMLParser
 from pathlib import Path
 
@@ -273,3 +274,78 @@ def test_an_empty_study_renders_every_document(study: Path) -> None:
             text = render(document, fmt)
             assert "apply them before you share this document" in text
     assert "No data drop has been checked." in render("methods", "md")
+
+
+def _add_hostile_records() -> None:
+    """Text a user might paste, in every kind of record that reaches a Markdown document."""
+    from report_study import stamp
+    from studylog.store.models import DataTable, Entry, Question, Rule, Threat
+
+    with transaction(locate(), write=True) as session:
+        visits = session.query(DataTable).filter_by(name="visits").one()
+        session.add(Rule(table_id=visits.id, name="sane-range", expression="systolic_bp < 300 & systolic_bp > 0",
+                         severity="warning", why="<b onmouseover=alert(1)>bold</b> | pipes", author="analyst",
+                         created_at=stamp(2)))
+        session.add(Entry(kind="next", text="# Not a heading <iframe src=x></iframe>", tags=[],
+                          author="analyst", created_at=stamp(16)))
+        session.add(Entry(kind="next", text="1. not a list &#60;script&#62;alert(2)&#60;/script&#62;",
+                          tags=[], author="analyst", created_at=stamp(16)))
+        session.add(Entry(kind="conclusion", text="See [the notes](javascript:alert(3)) and "
+                          "<https://example.invalid/x>.", tags=[], author="analyst", created_at=stamp(16)))
+        session.add(Question(text="> Quoted? <img src=x onerror=alert(4)>", to="data owner", status="open",
+                             author="analyst", created_at=stamp(7)))
+        session.add(Threat(text="Readings <svg onload=alert(5)>", kind="internal", severity="low",
+                           mitigation="[x]: javascript:alert(6)", status="open", author="analyst",
+                           created_at=stamp(8)))
+
+
+class _Rendered(HTMLParser):
+    """Tags, attributes and text of HTML that a Markdown viewer produced."""
+
+    def __init__(self) -> None:
+        super().__init__(convert_charrefs=True)
+        self.tags: list[tuple[str, dict[str, str | None]]] = []
+        self.text: list[str] = []
+
+    def handle_starttag(self, tag: str, attrs: list[tuple[str, str | None]]) -> None:
+        self.tags.append((tag, dict(attrs)))
+
+    def handle_data(self, data: str) -> None:
+        self.text.append(data)
+
+
+@pytest.mark.parametrize("document", list(report.DOCUMENTS))
+def test_markdown_reads_as_written_and_a_viewer_passing_html_runs_nothing(built, document: str) -> None:  # type: ignore[no-untyped-def]
+    _add_hostile_records()
+    text = render(document, "md")
+    # no HTML entities in the Markdown file: it reads as it was written (an entity someone typed is
+    # escaped, so that it too shows as typed)
+    typed = re.sub(r"\\&#?\w+;", "", text)
+    for entity in ("&gt;", "&lt;", "&amp;", "&quot;", "&#"):
+        assert entity not in typed, entity
+    # a viewer that passes raw HTML through (markdown-it-py with html enabled, as most viewers are)
+    viewer = MarkdownIt("commonmark", {"html": True}).enable("table")
+    page = _Rendered()
+    page.feed(viewer.render(text))
+    allowed = {"h1", "h2", "h3", "h4", "p", "em", "strong", "code", "ul", "ol", "li", "hr", "table", "thead",
+               "tbody", "tr", "th", "td", "a", "br", "blockquote"}
+    tags = {tag for tag, _ in page.tags}
+    assert tags <= allowed, tags - allowed
+    for tag, attrs in page.tags:
+        assert not any(name.startswith("on") or name == "src" for name in attrs), (tag, attrs)
+        assert not (attrs.get("href") or "").lower().startswith(("javascript:", "vbscript:", "data:"))
+    shown = "".join(page.text)
+    if document in ("dictionary", "writeup"):
+        assert "\\<script>alert('x')\\</script>" in text  # escaped in the file, shown as text
+        assert "<script>alert('x')</script>" in shown and "<img src=x onerror=alert(1)>" in shown
+        # a rule's expression reads as written, its pipe escaped only inside the table cell
+        assert "| systolic_bp < 300 & systolic_bp > 0 |" in text and "\\| pipes |" in text
+        assert "<b onmouseover=alert(1)>bold</b> | pipes" in shown
+    if document in ("conclusions", "writeup"):
+        # a leading "#" or "1." in a one-line text opens no heading or list
+        assert "- \\# Not a heading \\<iframe src=x>\\</iframe>" in text
+        assert "- 1\\. not a list" in text and "<iframe src=x></iframe>" in shown
+        assert "&#60;script&#62;" in shown  # an entity typed by someone stays what they typed
+        assert "[the notes](javascript:alert(3))" in shown  # a script link stays text
+    if document in ("validity", "writeup"):
+        assert "<svg onload=alert(5)>" in shown and "[x]: javascript:alert(6)" in shown

@@ -54,7 +54,7 @@ def test_record_flow_and_small_counts(study: Path) -> None:
     diagnosis = next(f for f in drops[ids["drop2"]]["findings"] if f["variable"] == "diagnosis")
     assert diagnosis["message"] == "values not among the declared levels"  # the message named a value
     income = next(f for f in drops[ids["drop2"]]["findings"] if f["variable"] == "income")
-    assert income["resolved_by"] == [f"D{ids['d2']}"]
+    assert income["resolved_by"] == [ids["d2"]]  # D2 names income and drop 2
 
 
 def test_post_hoc_follows_the_plan_freeze_when_the_flag_is_missing(study: Path) -> None:

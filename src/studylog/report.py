@@ -9,8 +9,10 @@ What leaves the study is safe:
 - HTML templates are autoescaped; text written into the store (descriptions, reasons) goes through the
   ``md`` filter: markdown-it-py's CommonMark with raw HTML disabled and images switched off (a document
   must not fetch anything), so ``<script>`` shows as text.
-- In Markdown output the same filter makes raw HTML inert (``<`` ``>`` ``&`` become entities), so that a
-  Markdown viewer that does pass HTML through shows it as text; ``cell`` also escapes ``|`` for tables.
+- In Markdown output text is written as it reads (no HTML entities); the same filter backslash-escapes
+  what a Markdown viewer that passes HTML through would run or fetch (``<`` before a tag, an entity's
+  ``&``, ``![``, a ``javascript:`` link), so that it shows as text; ``inline`` also escapes a leading
+  character that would open a block, ``cell`` also escapes ``|`` for tables.
 """
 
 from __future__ import annotations
@@ -18,6 +20,7 @@ from __future__ import annotations
 import functools
 import importlib.metadata
 import platform
+import re
 from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
@@ -75,10 +78,36 @@ def _markdown() -> MarkdownIt:
 _MD = _markdown()
 
 
+# Markdown text is written as it reads, with no HTML entities; only what would become markup that a
+# Markdown viewer runs or fetches is backslash-escaped (CommonMark 0.31, "Backslash escapes": an escaped
+# character is literal text, so an escaped "<" can start neither raw HTML nor an autolink).
+_TAG_START = re.compile(r"<(?=[A-Za-z/!?])")  # a tag, closing tag, comment, declaration or autolink
+_ENTITY = re.compile(r"&(?=#[0-9]{1,7};|#[xX][0-9a-fA-F]{1,6};|[A-Za-z][A-Za-z0-9]{1,31};)")
+_BAD_LINK = re.compile(r"\]\((?=\s*<?\s*(?:javascript|vbscript|data|file):)", re.IGNORECASE)
+_BAD_DEFINITION = re.compile(r"^(\s{0,3})\[(?=[^\]]*\]:\s*<?\s*(?:javascript|vbscript|data|file):)",
+                             re.IGNORECASE | re.MULTILINE)
+# what starts a block when it opens a line: heading, quote, list, thematic break, fence, table, setext
+_LEADING = re.compile(r"^(#|>|[-+*](?=\s|$)|=|~~~|```|\||(\d{1,9})(?=[.)](?:\s|$)))")
+
+
 def _neutral(text: str) -> str:
-    """Markdown text with raw HTML and images made inert (shown as text by any Markdown renderer)."""
-    text = text.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
-    return text.replace("![", "!\\[")  # an image would be fetched by the viewer
+    """Markdown as written, with raw HTML, images and script links made inert (shown as text)."""
+    text = _TAG_START.sub(r"\\<", text)
+    text = _ENTITY.sub(r"\\&", text)
+    text = text.replace("![", "!\\[")  # an image would be fetched by the viewer
+    text = _BAD_LINK.sub(r"]\\(", text)
+    return _BAD_DEFINITION.sub(r"\1\\[", text)
+
+
+def _leading(text: str) -> str:
+    """One line of text that must not open a block (a heading, a quote, a list) where it starts a line."""
+    match = _LEADING.match(text)
+    if match is None:
+        return text
+    if match.group(2):  # "1." or "1)": escape the delimiter, not the digits
+        end = match.end(2)
+        return text[:end] + "\\" + text[end:]
+    return "\\" + text
 
 
 def _md_block(value: Any) -> str:
@@ -86,7 +115,12 @@ def _md_block(value: Any) -> str:
 
 
 def _md_inline(value: Any) -> str:
-    return "" if value is None else " ".join(_neutral(str(value)).split())
+    if value is None:
+        return ""
+    text = _leading(" ".join(_neutral(str(value)).split()))
+    # a trailing backslash would escape the template's next character (the "*" closing bold text)
+    trailing = len(text) - len(text.rstrip("\\"))
+    return text + "\\" if trailing % 2 else text
 
 
 def _md_cell(value: Any) -> str:
@@ -133,8 +167,24 @@ def codes(items: list[dict[str, Any]] | None) -> str:
     )
 
 
+def plural(count: Any, one: str, many: str | None = None) -> str:
+    """``3 errors``, ``1 error``, ``no errors``; a withheld count ("<5") takes the plural."""
+    many = many or one + "s"
+    if count == 0:
+        return f"no {many}"
+    return f"{number(count)} {one if count == 1 else many}"
+
+
+def series(items: Any) -> str:
+    """Items as prose: ``a``, ``a and b``, ``a, b and c``."""
+    texts = [_plain(i) for i in items or [] if i not in (None, "")]
+    if len(texts) < 2:
+        return "".join(texts)
+    return ", ".join(texts[:-1]) + " and " + texts[-1]
+
+
 def _filters(fmt: str) -> dict[str, Any]:
-    common = {"num": number, "plain": _plain, "codes": codes}
+    common = {"num": number, "plain": _plain, "codes": codes, "plural": plural, "series": series}
     if fmt == "html":
         return common | {"md": _html_block, "inline": _html_inline, "cell": _plain}
     return common | {"md": _md_block, "inline": _md_inline, "cell": _md_cell}

@@ -7,8 +7,9 @@ sees the data, so that no template (ours or a user's) can show what must not lea
 - counts from 1 to ``min_cell - 1`` arrive as the text "<min_cell" (:func:`studylog.safety.small_count`);
 - the observed extremes (min, max, end labels of a histogram) of quasi-identifiers are left out;
 - no value of a direct-identifier, sensitive, free-text or identifier variable is included (no levels
-  seen in the data, no summary values, no chart, no finding message), only counts;
-- finding rows, keys and example values are never included.
+  seen in the data, no summary values, no chart), only counts;
+- finding rows, keys and example values are never included, and a checker's message only where it can
+  hold no small count and no value of a private variable (:mod:`studylog.report_drops`).
 
 Text written by people (descriptions, reasons) is passed as it was written; the templates render it
 through the ``md`` filter, which for HTML is markdown-it-py with raw HTML disabled.
@@ -32,7 +33,6 @@ from studylog.store.models import (
     DictionaryVersion,
     Drop,
     Entry,
-    Finding,
     Link,
     Profile,
     Question,
@@ -200,7 +200,7 @@ def version_context(s: Study) -> dict[str, Any] | None:
         return None
     since = s.session.scalars(
         select(Change.id).where(
-            Change.entity.in_(("variable", "table")), Change.id > (version.change_id or 0)
+            Change.entity.in_(("variable", "table", "rule")), Change.id > (version.change_id or 0)
         )
     ).all()
     return {"name": version.name, "note": version.note, "frozen_on": _date(version.created_at),
@@ -253,62 +253,6 @@ def decision_context(s: Study, decision: Decision) -> dict[str, Any]:
     }
 
 
-# what a finding is about, said without its values (used where the checker's message may hold values)
-RULE_TEXT = {
-    "absent-column": "the column is missing from the file",
-    "undeclared-column": "a column the dictionary does not know",
-    "renamed-column": "the column was found under an earlier name",
-    "type": "values not of the declared type", "level": "values not among the declared levels",
-    "range": "values outside the possible range", "plausible": "values outside the plausible range",
-    "required": "missing values in a required variable", "missing-share": "more missing than allowed",
-    "unique": "values repeating an earlier row", "key": "rows repeating an earlier key",
-    "pattern": "values not matching the pattern", "repeated-row": "rows repeating an earlier row",
-    "orphan": "rows referring to a key not in the referenced table",
-}
-
-
-def _finding_context(s: Study, finding: Finding, table_id: int,
-                     decisions: list[dict[str, Any]]) -> dict[str, Any]:
-    variable = next((v for v in s.variables if v.table_id == table_id and v.name == finding.variable),
-                    None)
-    safe = variable is None or not s.masked(variable)
-    return {
-        "variable": finding.variable, "rule": finding.rule, "severity": finding.severity,
-        "count": s.count(finding.count),
-        "message": finding.message if safe else RULE_TEXT.get(finding.rule, "values withheld"),
-        "resolved_by": [d["ref"] for d in decisions if finding.variable is not None
-                        and any(name.split(".")[-1] == finding.variable for name in d["variables"])],
-    }
-
-
-def drops_context(s: Study) -> list[dict[str, Any]]:
-    found = []
-    for drop in s.drops:
-        decisions = [decision_context(s, d) for d in s.decisions
-                     if d.drop_id == drop.id and d.status in IN_FORCE]
-        findings = s.session.scalars(
-            select(Finding).where(Finding.drop_id == drop.id).order_by(Finding.id)
-        )
-        comparison = drop.comparison or {}
-        records = comparison.get("records") or None
-        found.append({
-            "id": drop.id, "label": drop.label, "table": s.table_by_id[drop.table_id].name,
-            "file": drop.file_name, "checked_on": _date(drop.checked_at), "rows": s.count(drop.rows),
-            "columns": drop.columns, "dictionary_version": drop.dictionary_version,
-            "errors": drop.errors, "warnings": drop.warnings, "analysis": drop.analysis,
-            "against": drop.against_id,
-            "findings": [_finding_context(s, f, drop.table_id, decisions) for f in findings],
-            "decisions": [d["ref"] for d in decisions],
-            "drift": [{"variable": d.get("variable"), "measure": d.get("measure"), "value": d.get("value"),
-                       "band": d.get("band")} for d in comparison.get("drift") or []
-                      if d.get("band") not in (None, "stable")],
-            "records": None if not records or drop.against_id is None else
-            {k: s.count(records[k]) for k in ("new", "vanished", "changed")
-             if records.get(k) is not None} or None,
-        })
-    return found
-
-
 def _decision_table(s: Study, decision: Decision) -> int | None:
     if decision.drop_id is not None:
         drop = next((d for d in s.drops if d.id == decision.drop_id), None)
@@ -351,6 +295,8 @@ def record_flows(s: Study) -> list[dict[str, Any]]:
 
 
 def methods_context(s: Study) -> dict[str, Any]:
+    from studylog.report_drops import drops_context  # it builds on this module's Study
+
     in_force = [d for d in s.decisions if d.status in IN_FORCE]
     flows = record_flows(s)
     in_flow = {step["id"] for flow in flows for step in flow["steps"]}
