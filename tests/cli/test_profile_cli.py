@@ -109,3 +109,29 @@ def test_unknown_table_with_a_study_is_exit_2(cli, study: Path, members: Path) -
     result = cli("profile", str(members), "--table", "visits", "--json")
     assert result.exit_code == 2
     assert "visits" in result.stderr
+
+
+@pytest.fixture
+def narrow(monkeypatch):  # type: ignore[no-untyped-def]
+    """The shared console at 100 columns, as on a common terminal."""
+    from studylog.cli import render
+
+    monkeypatch.setattr(render.console, "width", 100)
+
+
+def test_human_output_fits_100_columns(cli, members: Path, narrow) -> None:  # type: ignore[no-untyped-def]
+    result = cli("profile", str(members), "--target", "renewed", "--by", "sex")
+    assert result.exit_code == 0, result.stderr
+    lines = result.stdout.splitlines()
+    assert max(len(line.rstrip()) for line in lines) <= 100
+    # the numeric profile is split: distribution first, then shape, outliers and normality
+    distribution = next(line for line in lines if "median" in line)
+    assert "q1" in distribution and "sd" in distribution and "skewness" not in distribution
+    shape = next(line for line in lines if "skewness" in line)
+    assert "Tukey" in shape and "modified" in shape and "normality" in shape
+    assert "Numeric variables: shape and outliers" in result.stdout
+    # numbers are never cut across lines: the count of rows appears whole in the row of age
+    age = next(line for line in lines if line.startswith("age "))
+    assert " 120 " in age
+    # a suggestion's command starts a line of its own, so that it can be copied
+    assert any(line.strip().startswith("$ studylog ") for line in lines)

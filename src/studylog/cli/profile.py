@@ -66,17 +66,97 @@ profile.__doc__ = f"{profile.__doc__}\n\n{DEFINITIONS}"
 
 
 def _num(value: Any) -> str:
+    """A number for the screen: whole numbers as they are, else four significant digits, and no
+    exponent below a million (incomes and counts read better as 48391.2 than 4.839e+04)."""
     if value is None:
         return ""
     if isinstance(value, float):
+        if value.is_integer() and abs(value) < 1e15:
+            return str(int(value))
+        if 1000 <= abs(value) < 1e6:
+            return f"{value:.1f}"
         return f"{value:.4g}"
     return str(value)
+
+
+def _level(value: Any) -> str:
+    """A level as it is, quoted when blanks at its ends (or emptiness) would be invisible."""
+    text = str(value)
+    return repr(text) if text != text.strip() or not text else text
+
+
+def _when(value: Any) -> Any:
+    """An ISO date-time for the screen: a space for the 'T', whole minutes without ':00' seconds."""
+    if not isinstance(value, str) or "T" not in value:
+        return value
+    text = value.replace("T", " ", 1)
+    return text[:-3] if len(text) == 19 and text.endswith(":00") else text
 
 
 def _p(value: Any) -> str:
     if value is None:
         return ""
     return "<0.0001" if value < 1e-4 else f"{value:.4f}"
+
+
+def _n(name: str) -> render.Column:
+    return render.Column(name, numeric=True)
+
+
+NAME = render.Column("variable", wrap=False)
+
+
+def _columns(headers: list[str], *, names: tuple[str, ...] = (),
+             texts: tuple[str, ...] = ()) -> list[render.Column]:
+    """Columns for ``compact_table``: ``names`` on one line, ``texts`` wrapped, the others numbers."""
+    return [render.Column(h, wrap=False) if h in names else render.Column(h, min_width=14) if h in texts
+            else _n(h) for h in headers]
+
+
+def _numeric(numeric: list[dict[str, Any]]) -> None:
+    """Two tables, so that each fits 100 columns: the distribution, then shape, outliers and normality."""
+    render.compact_table(
+        [NAME, _n("count"), _n("missing"), _n("distinct"), _n("min"),
+         _n("q1"), _n("median"), _n("q3"), _n("max"), _n("mean"), _n("sd")],
+        [[v["name"], v["count"], v["missing"], v["distinct"], _num(v["min"]), _num(v["q1"]),
+          _num(v["median"]), _num(v["q3"]), _num(v["max"]), _num(v["mean"]), _num(v["sd"])] for v in numeric],
+        title="Numeric variables: distribution (quartiles type 7, sd with n - 1)",
+    )
+    rows = []
+    for v in numeric:
+        outliers = v["outliers"]
+        normality = v.get("normality") or {}
+        modified = "MAD=0" if outliers["modified_z"] is None and v["count"] else outliers["modified_z"]
+        rows.append([v["name"], _num(v["skewness"]), _num(v.get("kurtosis")), outliers["tukey"],
+                     outliers["tukey_far"], modified, normality.get("test") or "",
+                     _p(normality.get("p_value")), normality.get("n")])
+    render.compact_table(
+        [NAME, _n("skewness\nG1"), _n("kurtosis\nG2"), _n("Tukey\ninner"), _n("Tukey\nouter"),
+         _n("modified\nz > 3.5"), render.Column("normality\ntest", wrap=False), _n("normality\np"), _n("n")],
+        rows,
+        title="Numeric variables: shape and outliers (values beyond Tukey's fences on the hinges)",
+    )
+
+
+def _categorical(levels: list[dict[str, Any]]) -> None:
+    """Counts and the three most frequent levels; case or blank variants only when there are some."""
+    variants = any(v.get("variants") for v in levels)
+    headers = ["variable", "type", "count", "missing", "distinct", "most frequent (count)"] + (
+        ["variants"] if variants else []) + ["near-zero\nvariance"]
+    rows = []
+    for v in levels:
+        frequent = ", ".join(f"{_level(lv['value'])} ({lv['count']})" for lv in v["levels"][:3]) + (
+            ", ..." if len(v["levels"]) > 3 else "")
+        row = [v["name"], v["type"], v["count"], v["missing"], v["distinct"], frequent]
+        if variants:
+            row.append("; ".join(" / ".join(repr(x) for x in g) for g in v.get("variants") or []))
+        rows.append(row + [v.get("near_zero_variance")])
+    columns = _columns(headers, names=("variable", "type"))
+    # the two text columns share what the counts leave (rich would otherwise cut the last column)
+    columns[5] = render.Column(headers[5], width=18 if variants else None, min_width=18)
+    if variants:
+        columns[6] = render.Column("variants", width=18)
+    render.compact_table(columns, rows, title="Categorical variables")
 
 
 def show(document: dict[str, Any]) -> None:
@@ -88,51 +168,39 @@ def show(document: dict[str, Any]) -> None:
     variables = document["variables"]
     numeric = [v for v in variables if v["type"] in ("integer", "number")]
     if numeric:
-        render.table(
-            ["variable", "type", "count", "missing", "distinct", "min", "q1", "median", "q3", "max", "mean",
-             "sd", "skew", "tukey", "far", "mod z", "normality p"],
-            [[v["name"], v["type"], v["count"], v["missing"], v["distinct"], _num(v["min"]), _num(v["q1"]),
-              _num(v["median"]), _num(v["q3"]), _num(v["max"]), _num(v["mean"]), _num(v["sd"]),
-              _num(v["skewness"]), v["outliers"]["tukey"], v["outliers"]["tukey_far"],
-              "MAD=0" if v["outliers"]["modified_z"] is None and v["count"] else v["outliers"]["modified_z"],
-              _p((v.get("normality") or {}).get("p_value"))] for v in numeric],
-            title="Numeric variables",
-        )
+        _numeric(numeric)
     levels = [v for v in variables if v["type"] in ("categorical", "ordinal", "boolean")]
     if levels:
-        render.table(
-            ["variable", "type", "count", "missing", "distinct", "most frequent", "variants", "near-zero var."],
-            [[v["name"], v["type"], v["count"], v["missing"], v["distinct"],
-              ", ".join(f"{lv['value']} ({lv['count']})" for lv in v["levels"][:4]),
-              "; ".join("/".join(repr(x) for x in g) for g in v.get("variants") or []),
-              v.get("near_zero_variance")] for v in levels],
-            title="Categorical variables",
-        )
+        _categorical(levels)
     dates = [v for v in variables if v["type"] in ("date", "datetime")]
     if dates:
-        render.table(
-            ["variable", "type", "count", "missing", "invalid", "min", "max", "granularity", "periods without data"],
-            [[v["name"], v["type"], v["count"], v["missing"], v["invalid"], v["min"], v["max"], v["granularity"],
+        render.compact_table(
+            _columns(["variable", "count", "missing", "invalid", "min", "max", "granularity",
+                      "periods\nwithout data"], names=("variable", "min", "max", "granularity")),
+            [[v["name"], v["count"], v["missing"], v["invalid"], _when(v["min"]), _when(v["max"]),
+              v["granularity"],
               (v.get("gaps") or {}).get("periods_without_data")] for v in dates],
-            title="Dates",
+            title="Dates and date-times",
         )
     texts = [v for v in variables if v["type"] in ("text", "identifier")]
     if texts:
-        render.table(
-            ["variable", "type", "count", "missing", "distinct", "repeated"],
+        render.compact_table(
+            _columns(["variable", "type", "count", "missing", "distinct", "repeated"], names=("variable", "type")),
             [[v["name"], v["type"], v["count"], v["missing"], v["distinct"], v.get("repeated")] for v in texts],
             title="Text and identifiers",
         )
     coded = [(v["name"], c) for v in variables for c in v.get("missing_codes", []) if c["count"]]
     if coded:
-        render.table(["variable", "missing code", "count", "declared"],
+        render.compact_table(_columns(["variable", "missing code", "count", "declared"],
+                                      names=("variable", "missing code", "declared")),
                      [[name, c["code"], c["count"], c["declared"]] for name, c in coded], title="Missing codes")
     target = document.get("target")
     if target:
         if target.get("classes"):
-            render.table(["class", "count", "share"],
-                         [[c["value"], c["count"], f"{100 * c['share']:.1f}%"] for c in target["classes"]],
-                         title=f"Target {target['name']} (imbalance ratio {_num(target.get('imbalance_ratio'))})")
+            ratio = _num(target.get("imbalance_ratio")) or "undefined (one class)"
+            render.say(f"Target {target['name']}: imbalance ratio {ratio} (majority / minority)")
+            render.compact_table(_columns(["class", "count", "share"], names=("class",)),
+                                 [[c["value"], c["count"], f"{100 * c['share']:.1f}%"] for c in target["classes"]])
         elif target.get("distribution"):
             render.fields(list(target["distribution"].items())[:-1], title=f"Target {target['name']}")
     correlations = sorted(
@@ -140,7 +208,8 @@ def show(document: dict[str, Any]) -> None:
         key=lambda p: -abs(p["pearson"]),
     )
     if correlations:
-        render.table(["a", "b", "pearson", "spearman", "n", "strong", "consider"],
+        render.compact_table(_columns(["a", "b", "pearson", "spearman", "n", "strong", "consider"],
+                                      names=("a", "b", "strong", "consider")),
                      [[p["a"], p["b"], _num(p["pearson"]), _num(p["spearman"]), p["n"], p["strong"],
                        p.get("consider")] for p in correlations[:30]],
                      title="Correlations (largest |r| first, at most 30 shown)")
@@ -148,14 +217,16 @@ def show(document: dict[str, Any]) -> None:
         (a for a in document["associations"] if a["cramers_v"] is not None), key=lambda a: -a["cramers_v"]
     )
     if associations:
-        render.table(["a", "b", "cramer's V", "corrected", "kendall tau-b", "n", "missing excluded"],
+        render.compact_table(_columns(["a", "b", "Cramér's V", "corrected\nV", "Kendall\ntau-b", "n",
+                                       "missing\nexcluded"], names=("a", "b")),
                      [[a["a"], a["b"], _num(a["cramers_v"]), _num(a["cramers_v_corrected"]),
                        _num(a.get("kendall_tau_b")), a["n"], a["missing_excluded"]] for a in associations[:30]],
                      title="Associations (largest V first, at most 30 shown)")
     groups = document.get("groups")
     if groups:
-        render.table(
-            ["variable", "n", "groups", "anova F", "eta^2", "p", "p Holm", "kruskal H", "epsilon^2", "p", "p Holm"],
+        render.compact_table(
+            _columns(["variable", "n", "groups", "ANOVA\nF", "η²", "p", "p\nHolm", "Kruskal\nH", "ε²",
+                      "p", "p\nHolm"], names=("variable",)),
             [[c["variable"], c["n"], c.get("groups"),
               _num((c["anova"] or {}).get("f")), _num((c["anova"] or {}).get("eta_squared")),
               _p((c["anova"] or {}).get("p_unadjusted")), _p((c["anova"] or {}).get("p_holm")),
@@ -167,9 +238,9 @@ def show(document: dict[str, Any]) -> None:
         )
     suggestions = document["suggestions"]
     if suggestions:
-        render.table(["topic", "variable", "to review", "to record it"],
-                     [[s["topic"], s["variable"], s["message"], s["command"]] for s in suggestions],
-                     title="Suggestions")
+        # the command on a line of its own after the message, so that it can be copied whole
+        render.fields([(s["topic"], f"{s['message']}\n$ {s['command']}") for s in suggestions],
+                      title="Suggestions (to review; the command records the outcome)")
     else:
         render.say("No suggestions: nothing stood out for review.")
     if document.get("unweighted"):

@@ -103,14 +103,18 @@ def compact_table(
     from rich.markup import escape
 
     grid = Table(title=escape(title) if title else None, title_justify="left", box=box.SIMPLE_HEAD,
-                 pad_edge=False, padding=(0, 1), show_edge=False, title_style="bold")
-    for spec in columns:
-        spec = Column(spec) if isinstance(spec, str) else spec
-        grid.add_column(spec.name, justify="right" if spec.numeric else "left",
-                        no_wrap=not spec.wrap, max_width=spec.width,
-                        min_width=spec.min_width, overflow="fold")
-    for row in rows:
-        grid.add_row(*(v if isinstance(v, Text) else escape(cell(v)) for v in row))
+                 pad_edge=False, padding=(0, 1, 0, 0), show_edge=False, title_style="bold")
+    specs = [Column(spec) if isinstance(spec, str) else spec for spec in columns]
+    cells = [[v if isinstance(v, Text) else escape(cell(v)) for v in row] for row in rows]
+    for i, spec in enumerate(specs):
+        least = spec.min_width
+        if spec.numeric:  # a number is never cut, nor a word of its header
+            words = [len(w) for w in spec.name.split()] + [len(str(row[i])) for row in cells if i < len(row)]
+            least = max([least or 0, *words])
+        grid.add_column(spec.name, justify="right" if spec.numeric else "left", no_wrap=not spec.wrap,
+                        max_width=spec.width, min_width=least, overflow="fold")
+    for row in cells:
+        grid.add_row(*row)
     console.print(grid)
 
 
