@@ -54,14 +54,17 @@ def write_visits(folder: Path, name: str, ids: range, shift: float, seed: int) -
     return folder / name
 
 
-def test_three_drops_of_two_linked_tables(cli, linked: Path) -> None:  # type: ignore[no-untyped-def]
+def test_three_drops_of_two_linked_tables(cli, linked: Path, monkeypatch) -> None:  # type: ignore[no-untyped-def]
+    from studylog.cli import render
+
+    monkeypatch.setattr(render.console, "width", 100)  # human output is checked at 100 columns
     folder = linked
     m1 = write_members(folder, "m1.csv", 300, ["basic", "plus"], 1)
     v1 = write_visits(folder, "v1.csv", range(0, 2000), 0.0, 1)
     first = run_json(cli, "check", str(v1), "--table", "visits")
     assert first["records"]["against"] is None
     assert [f["severity"] for f in first["findings"] if f["rule"] == "orphan"] == ["info"]
-    run_json(cli, "check", str(m1), "--table", "members")
+    members_first = run_json(cli, "check", str(m1), "--table", "members")
     # second: the same distribution, 100 visits gone, 100 new, of members 300..349 (orphans: the
     # members drop has 300)
     v2 = write_visits(folder, "v2.csv", range(100, 2100), 0.0, 2)
@@ -117,6 +120,26 @@ def test_three_drops_of_two_linked_tables(cli, linked: Path) -> None:  # type: i
     assert "records" in visits and "drift_bands" in visits
     human = cli("drift", str(second["drop"]["id"]), str(third["drop"]["id"]))
     assert human.exit_code == 0 and "earlier drop" in human.stdout and "later drop" in human.stdout
+    lines = human.stdout.splitlines()
+    assert max(len(line.rstrip()) for line in lines) <= 100
+    # notes stand on their own line, not in the band column; the table row of minutes has its band
+    assert "  visit_id, member_id: identifiers are compared record by record, not by their distribution" \
+        in lines
+    assert any(line.startswith("minutes ") and "shifted" in line for line in lines)
+    assert f"records compared with drop {second['drop']['id']}: 100 new, 0 vanished" in human.stdout
+    # the check shows the drift of members' plan (a new level, shifted) and one line of records
+    members_check = cli("check", str(m2), "--table", "members", "--no-record", "--against",
+                        str(members_first["drop"]["id"]))
+    out = members_check.stdout
+    assert members_check.exit_code == 0, members_check.output
+    assert "drift: 1 of 1 variables worth a look" in out and "+ gold" in out
+    assert "records compared with drop" in out and "variable=" not in out
+    listing = cli("drops")
+    assert listing.exit_code == 0 and max(len(line.rstrip()) for line in listing.stdout.splitlines()) <= 100
+    assert "m1.csv" in listing.stdout and "+100 -0 ~" in listing.stdout
+    shown = cli("drop", "show", str(third["drop"]["id"]))
+    assert shown.exit_code == 0, shown.output
+    assert "compared with the earlier drop" in shown.stdout and "Profile" in shown.stdout
 
 
 def test_bad_input_exits_2_and_records_nothing(cli, linked: Path) -> None:  # type: ignore[no-untyped-def]

@@ -82,14 +82,14 @@ def _show(document: dict[str, Any]) -> None:
     render.say(head)
     findings = sorted(document["findings"], key=lambda f: SEVERITY_ORDER.get(f["severity"], 3))
     if findings:
-        _findings(findings)
+        findings_view(findings)
     else:
         render.say("no findings: the file agrees with the dictionary")
     _comparison(document)
     render.say(f"{document['errors']} error(s), {document['warnings']} warning(s)")
 
 
-def _findings(findings: list[dict[str, Any]]) -> None:
+def findings_view(findings: list[dict[str, Any]]) -> None:
     """One line per finding (the message shortened for the screen), then a few example rows of each."""
     from rich.text import Text
 

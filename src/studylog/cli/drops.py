@@ -181,13 +181,17 @@ def drops(
     if not result:
         render.say("no drop recorded yet; check one with 'studylog check FILE'")
         return
-    render.table(
-        ["id", "table", "file", "rows", "checked", "errors", "warnings", "analysed", "against", "drift",
-         "records +new -gone ~changed"],
-        ([d["id"], d["table"], d["file"] + (f" ({d['label']})" if d["label"] else ""), d["rows"],
-          d["checked_at"][:10], d["errors"], d["warnings"], d["analysis"], d["against"],
-          _bands_text(d["drift_bands"]), _records_text(d["records"])] for d in result),
+    render.compact_table(
+        [render.Column("id", numeric=True), render.Column("table", wrap=False),
+         render.Column("file\n(label)", wrap=False, width=32), render.Column("rows", numeric=True),
+         render.Column("checked", wrap=False), render.Column("errors /\nwarnings", numeric=True),
+         render.Column("ana-\nlysed"), render.Column("vs", numeric=True), render.Column("drift", min_width=10),
+         render.Column("records\n+new -gone ~changed", min_width=10)],
+        ([d["id"], d["table"], d["file"] + (f"\n({d['label']})" if d["label"] else ""), d["rows"],
+          d["checked_at"][:10], f"{d['errors']} / {d['warnings']}", "yes" if d["analysis"] else "",
+          d["against"], _bands_text(d["drift_bands"]), _records_text(d["records"])] for d in result),
     )
+    render.say("vs: the earlier drop each was compared with; drift: how many variables in each band")
 
 
 def show(
@@ -207,14 +211,19 @@ def show(
                                           "dictionary", "checked_at", "author", "errors", "warnings",
                                           "analysis")], title=f"Drop {drop['id']}")
     if result["findings"]:
-        render.table(["variable", "rule", "severity", "count", "rows", "keys", "message"],
-                     ([f["variable"], f["rule"], f["severity"], f["count"], f["rows"][:5], f["keys"][:5],
-                       f["message"]] for f in result["findings"]), title="Findings")
+        from studylog.cli.check import findings_view
+
+        render.say("Findings")
+        findings_view(result["findings"])
     else:
         render.say("no findings")
-    render.table(["variable", "type", "rows", "count", "missing", "distinct", "median / most frequent"],
-                 ([p.get("name"), p.get("type"), p.get("rows"), p.get("count"), p.get("missing"),
-                   p.get("distinct"), _centre(p)] for p in result["profile"]), title="Profile")
+    render.compact_table(
+        [render.Column("variable", wrap=False), render.Column("type", wrap=False),
+         render.Column("rows", numeric=True), render.Column("count", numeric=True),
+         render.Column("missing", numeric=True), render.Column("distinct", numeric=True),
+         render.Column("median / most frequent")],
+        ([p.get("name"), p.get("type"), p.get("rows"), p.get("count"), p.get("missing"),
+          p.get("distinct"), _centre(p)] for p in result["profile"]), title="Profile")
     _comparison(result["comparison"]["against"], result["comparison"]["drift"],
                 result["comparison"]["records"])
 
