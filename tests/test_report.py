@@ -34,7 +34,7 @@ class Page(HTMLParser):
 
     def handle_starttag(self, tag: str, attrs: list[tuple[str, str | None]]) -> None:
         self.tags.append((tag, dict(attrs)))
-        if tag in ("h1", "h2", "h3", "h4"):
+        if tag in ("h1", "h2", "h3", "h4", "h5"):
             self._heading = tag
             self.headings.append((tag, ""))
         self._style = tag == "style"
@@ -103,11 +103,13 @@ def test_dictionary_html_structure(built) -> None:  # type: ignore[no-untyped-de
     # variables grouped by role in a fixed order, the target first
     assert visits.index("Target") < visits.index("Inputs") < visits.index("Identifiers") \
         < visits.index("Time")
-    assert "systolic_bp " + BP_LABEL in groups
+    # each variable a heading below its group's
+    variables = [text for level, text in page.headings if level == "h5"]
+    assert "systolic_bp " + BP_LABEL in variables and "systolic_bp " + BP_LABEL not in groups
     text = page.all_text
     assert "agreed-v1" in text and "1 recorded change since that version" in text
     assert "member_id → members.member_id" in text
-    assert "update of maximum on 2026-03-03 by analyst: the registry accepts ages up to 120" in text
+    assert "maximum changed on 2026-03-03 by analyst: the registry accepts ages up to 120" in text
     assert "confirmed by data owner on 2026-03-03" in text
     # one inline SVG chart per profiled variable that may show values: age, sex, systolic_bp,
     # readmitted (not member_id, income, diagnosis; discharged has no histogram)
@@ -156,8 +158,9 @@ def test_markdown_structure_of_the_writeup(built) -> None:  # type: ignore[no-un
     tokens = MarkdownIt("commonmark").enable("table").parse(text)
     headings = [tokens[i + 1].content for i, t in enumerate(tokens) if t.type == "heading_open"
                 and t.tag == "h2"]
-    assert headings == ["Methods", "Threats to validity", "Conclusions", "Open questions",
-                        "Data dictionary"]
+    # the open questions are told once, as the open limitations of the validity part
+    assert headings == ["Methods", "Threats to validity", "Conclusions", "Data dictionary"]
+    assert text.count("Is -99 in income a refusal?") == 1
     tables = [t for t in tokens if t.type == "table_open"]
     assert len(tables) >= 10  # findings, record flow, appendix, questions, one per variable...
     # the record flow table: received 1,250; removed 40 and <5; analysed 1,250 - 43
@@ -226,7 +229,7 @@ def test_validity_conclusions_and_questions(built) -> None:  # type: ignore[no-u
     sections = ["### Internal validity", "### External validity", "### Construct validity",
                 "### Statistical conclusion validity", "### Open limitations"]
     assert [validity.index(s) for s in sections] == sorted(validity.index(s) for s in sections)
-    assert "Severity high; open. Mitigation: sensitivity analysis under MNAR" in validity
+    assert "Severity high; status open. Mitigation: sensitivity analysis under MNAR." in validity
     assert "Is -99 in income a refusal?" in validity and "Are ages above 100 real?" not in validity
     conclusions = render("conclusions", "md")
     bp = conclusions.index("Readmission rises")
@@ -236,7 +239,7 @@ def test_validity_conclusions_and_questions(built) -> None:  # type: ignore[no-u
     assert "A single clinic" in conclusions.split("as a whole")[1]
     assert "- Validate on the 2026 stays" in conclusions
     questions = render("questions", "md")
-    assert "2 questions still open; 1 answered and 1 withdrawn." in questions
+    assert "2 questions are still open (1 answered, 1 withdrawn)." in questions
     assert questions.index("### To clinic lab") < questions.index("### To data owner")
 
 
@@ -349,3 +352,64 @@ def test_markdown_reads_as_written_and_a_viewer_passing_html_runs_nothing(built,
         assert "[the notes](javascript:alert(3))" in shown  # a script link stays text
     if document in ("validity", "writeup"):
         assert "<svg onload=alert(5)>" in shown and "[x]: javascript:alert(6)" in shown
+
+
+def test_the_writeup_reads_as_prose(built) -> None:  # type: ignore[no-untyped-def]
+    ids = built.ids
+    text = render("writeup", "md")
+    flat = " ".join(text.split())
+    # each drop's heading names its table, so that two deliveries with one label differ
+    drops = [line for line in text.splitlines() if line.startswith("#### Drop ")]
+    # (the table is not named twice where the label starts with it)
+    assert drops == [f"#### Drop {ids['drop1']}: members, first delivery",
+                     f"#### Drop {ids['drop2']}: visits, March", f"#### Drop {ids['drop3']}: visits, April"]
+    assert "The check found 2 errors and 1 warning, listed below." in flat
+    assert "error findings" not in flat and "0 warnings" not in flat
+    # every methods subsection in the order of an analysis is there, an empty one says so
+    transform = text.split("### Transformations and scaling")[1].split("###")[0]
+    assert transform.strip() == "No decision recorded."
+    # reasons, mitigations and conclusions end as sentences
+    assert f"**Recode sex X as not recorded.** [D{ids['d1']}]" in text
+    assert "Reason: X was a data-entry placeholder." in text
+    assert "Mitigation: compare with ward readings." in text
+    # the numbers a decision rested on: no "present in n of rows", which with the rows would give a
+    # small missing count away
+    assert "present in" not in flat
+    assert ("At the time, drop 2 held 1,200 records, with income missing in 130 (10.8%)." in flat)
+    # the dictionary: units with summaries and ranges, profile rows inside the entry's table
+    assert "| Summary (in mmHg) | min 82, mean 131.5, sd 18.2, q1 119, median 130, q3 143, max 231 |" in text
+    assert "| Possible range | 40 to 300 mmHg |" in text
+    tokens = MarkdownIt("commonmark").enable("table").parse(text)
+    in_table = False
+    seen_cells = 0
+    for token in tokens:
+        in_table = {"table_open": True, "table_close": False}.get(token.type, in_table)
+        if token.type == "inline" and token.content.startswith("Seen in drop"):
+            assert in_table, "a profile row outside its entry's table"
+            seen_cells += 1
+        if token.type == "inline" and not in_table:
+            assert not token.content.startswith("| "), token.content
+    assert seen_cells == 8
+    # a small missing count is not given away by the number present: sex, 2 of 800 missing
+    assert "800 rows, <5 missing (under 0.7%), 3 distinct values" in text and "798" not in text
+    # a confirmation is told once, by the status
+    assert "confirm of status" not in text and "confirmed on" not in text.split("## Data dictionary")[1] \
+        .replace("confirmed by data owner on", "")
+
+
+def test_moments_read_as_written_by_hand() -> None:
+    from studylog.report_dictionary import _moment
+
+    assert _moment("2026-02-01T00:00:00") == "2026-02-01 00:00"
+    assert _moment("2026-02-01T08:30:15") == "2026-02-01 08:30:15"
+    assert _moment("2026-02-01T08:30:00.000000+01:00") == "2026-02-01 08:30+01:00"
+    assert _moment("2026-02-01") == "2026-02-01"
+
+
+def test_prose_filters() -> None:
+    assert [report.plural(n, "error") for n in (0, 1, 2, "<5", 1234)] == [
+        "no errors", "1 error", "2 errors", "<5 errors", "1,234 errors"]
+    assert [report.series(x) for x in ([], ["a"], ["a", "b"], ["a", "b", "c"])] == [
+        "", "a", "a and b", "a, b and c"]
+    assert [report.sentence(x) for x in ("ends", "ends.", "asks?", "(aside)", "", None)] == [
+        "ends.", "ends.", "asks?", "(aside).", "", ""]

@@ -175,6 +175,16 @@ def plural(count: Any, one: str, many: str | None = None) -> str:
     return f"{number(count)} {one if count == 1 else many}"
 
 
+def sentence(value: Any) -> str:
+    """Text that ends as a sentence does: a full stop added where it ends in a word, number or bracket."""
+    if value is None:
+        return ""
+    text = str(value).rstrip()
+    if text and (text[-1].isalnum() or text[-1] in ")]*_`'\"’”%"):
+        return text + "."
+    return text
+
+
 def series(items: Any) -> str:
     """Items as prose: ``a``, ``a and b``, ``a, b and c``."""
     texts = [_plain(i) for i in items or [] if i not in (None, "")]
@@ -184,7 +194,8 @@ def series(items: Any) -> str:
 
 
 def _filters(fmt: str) -> dict[str, Any]:
-    common = {"num": number, "plain": _plain, "codes": codes, "plural": plural, "series": series}
+    common = {"num": number, "plain": _plain, "codes": codes, "plural": plural, "series": series,
+              "sentence": sentence}
     if fmt == "html":
         return common | {"md": _html_block, "inline": _html_inline, "cell": _plain}
     return common | {"md": _md_block, "inline": _md_inline, "cell": _md_cell}

@@ -17,6 +17,7 @@ through the ``md`` filter, which for HTML is markdown-it-py with raw HTML disabl
 
 from __future__ import annotations
 
+import math
 from collections import defaultdict
 from typing import Any
 
@@ -138,12 +139,19 @@ class Study:
         return small_count(value, self.min_cell)
 
     def share(self, part: int | None, whole: int | None) -> str | None:
-        """A share as text; a part below the threshold is not turned into an exact share."""
+        """A share as text; a part below the threshold is given only as a bound ("under 0.3%")."""
         if part is None or not whole:
             return None
-        if 0 < part < self.min_cell:
-            return f"<{self.min_cell} of {self.count(whole)}"
+        if self.small(part):
+            return f"under {math.ceil(1000 * self.min_cell / whole) / 10:.1f}%"
         return f"{100 * part / whole:.1f}%"
+
+    def small(self, count: int | None) -> bool:
+        return count is not None and 0 < count < self.min_cell
+
+    def complement(self, count: int | None, part: int | None) -> int | str | None:
+        """``count`` where it does not give a small ``part`` away (present = rows - missing): else None."""
+        return None if self.small(part) else self.count(count)
 
     def variable_name(self, variable: Variable) -> str:
         table = self.table_by_id[variable.table_id]
@@ -218,7 +226,7 @@ def _facts(s: Study, decision: Decision) -> list[dict[str, Any]]:
         outliers = fact.get("outliers") or {}
         found.append({
             "variable": name, "drop": fact.get("drop"), "rows": s.count(fact.get("rows")),
-            "n": s.count(fact.get("n")), "missing": s.count(fact.get("missing")),
+            "n": s.complement(fact.get("n"), fact.get("missing")), "missing": s.count(fact.get("missing")),
             "missing_share": s.share(fact.get("missing"), fact.get("rows")),
             "outliers": {k: s.count(v) for k, v in outliers.items() if v is not None},
         })
@@ -363,11 +371,13 @@ def open_questions(s: Study) -> list[dict[str, Any]]:
 
 def validity_context(s: Study) -> dict[str, Any]:
     threats = list(s.session.scalars(select(Threat).order_by(Threat.id)))
+    statuses = s.session.scalars(select(Question.status)).all()
     return {
         "groups": [{"kind": kind, "title": title,
                     "threats": [_threat_context(s, t) for t in threats if t.kind == kind]}
                    for kind, title in THREAT_KINDS],
         "limitations": open_questions(s),
+        "answered": statuses.count("answered"), "withdrawn": statuses.count("withdrawn"),
     }
 
 

@@ -3,6 +3,7 @@ showed of each (privacy applied, see :mod:`studylog.report_context`)."""
 
 from __future__ import annotations
 
+import re
 from collections import defaultdict
 from typing import Any
 
@@ -26,10 +27,16 @@ def _profile_context(s: Study, variable: Variable, data: dict[str, Any], drop: D
     missing = data.get("missing")
     masked = s.masked(variable)
     quasi = variable.sensitivity == "quasi-identifier"
+    present, distinct = data.get("count"), data.get("distinct")
+    all_distinct = bool(data.get("distinct_exact", True)) and distinct is not None and distinct == present
     result: dict[str, Any] = {
-        "drop": drop.id, "drop_label": drop.label, "rows": s.count(rows), "count": s.count(data.get("count")),
-        "missing": s.count(missing), "missing_share": s.share(missing, rows),
-        "distinct": data.get("distinct"), "distinct_exact": data.get("distinct_exact", True),
+        # present = rows - missing, and distinct = present when every value differs: neither is given
+        # where it would give a small missing count away
+        "drop": drop.id, "drop_label": drop.label, "rows": s.count(rows),
+        "count": s.complement(present, missing), "missing": s.count(missing),
+        "missing_share": s.share(missing, rows),
+        "distinct": s.complement(distinct, missing) if all_distinct else distinct,
+        "distinct_exact": data.get("distinct_exact", True), "all_distinct": all_distinct,
         "missing_codes": [{"code": c.get("code"), "count": s.count(c.get("count"))}
                           for c in data.get("missing_codes") or []],
         "summary": [], "levels": [], "levels_other": None, "chart": None, "withheld": [],
@@ -44,8 +51,10 @@ def _profile_context(s: Study, variable: Variable, data: dict[str, Any], drop: D
     if variable.type in ("date", "datetime") or numeric:
         keys = (["min"] if not quasi else []) + keys + (["max"] if not quasi else [])
     if quasi:
-        result["withheld"].append("extremes withheld (quasi-identifier)")
-    result["summary"] = [{"name": k, "value": data[k]} for k in keys if data.get(k) is not None]
+        result["withheld"].append("the lowest and highest values (a quasi-identifier)")
+    moment = variable.type in ("date", "datetime")
+    result["summary"] = [{"name": k, "value": _moment(data[k]) if moment else data[k]}
+                         for k in keys if data.get(k) is not None]
     histogram = data.get("histogram") or {}
     if histogram.get("counts"):
         result["chart"] = charts.histogram(
@@ -61,6 +70,18 @@ def _profile_context(s: Study, variable: Variable, data: dict[str, Any], drop: D
         result["chart"] = charts.level_bars(levels, other=data.get("levels_other") or 0,
                                             min_cell=s.min_cell, label=label)
     return result
+
+
+def _moment(value: Any) -> Any:
+    """An ISO date-time as a reader writes it: ``2026-02-01 08:30`` (seconds only when not zero)."""
+    text = str(value)
+    match = re.fullmatch(r"(\d{4}-\d\d-\d\d)[T ](\d\d:\d\d)(:\d\d(?:\.\d+)?)?(.*)", text)
+    if match is None:
+        return value
+    seconds = match.group(3) or ""
+    if re.fullmatch(r":00(\.0*)?", seconds):
+        seconds = ""
+    return f"{match.group(1)} {match.group(2)}{seconds}{match.group(4)}"
 
 
 def _last_change(s: Study, variable: Variable) -> dict[str, Any] | None:
@@ -79,10 +100,31 @@ def _codes_text(items: list[dict[str, Any]] | None) -> str:
                      for i in items or [])
 
 
-def _range(low: str | None, high: str | None) -> str | None:
+def _range(low: str | None, high: str | None, unit: str | None) -> str | None:
+    unit = f" {unit}" if unit else ""
     if low is None and high is None:
         return None
-    return f"{low if low is not None else '…'} to {high if high is not None else '…'}"
+    if high is None:
+        return f"at least {low}{unit}"
+    if low is None:
+        return f"at most {high}{unit}"
+    return f"{low} to {high}{unit}"
+
+
+# a change of an entry as a reader says it ("levels changed", "renamed"); others by their action's name
+CHANGE_WORDS = {"create": "created", "confirm": "confirmed", "deprecate": "deprecated", "rename": "renamed",
+                "import": "imported", "draft": "drafted", "redact": "redacted"}
+
+
+def _change_text(last: dict[str, Any]) -> str:
+    action, field = last["action"], last.get("field")
+    if action == "update" and field:
+        what = f"{field.replace('_', ' ')} changed"
+    else:
+        what = CHANGE_WORDS.get(action, action) + (f" ({field.replace('_', ' ')})"
+                                                    if field and action not in CHANGE_WORDS else "")
+    text = f"{what} on {last['on']} by {last['author']}"
+    return text + (f": {last['why']}" if last.get("why") else "")
 
 
 def display_rows(variable: Variable, confirmed_on: str | None,
@@ -104,10 +146,8 @@ def display_rows(variable: Variable, confirmed_on: str | None,
         status += f" by {variable.confirmed_by}" + (f" on {confirmed_on}" if confirmed_on else "")
     checks = ", ".join(w for w, on in (("required", variable.required), ("unique", variable.unique)) if on)
     dates = "; ".join(x for x in (variable.date_format, variable.timezone) if x)
-    change = None
-    if last is not None:
-        change = f"{last['action']}" + (f" of {last['field']}" if last.get("field") else "") \
-            + f" on {last['on']} by {last['author']}" + (f": {last['why']}" if last.get("why") else "")
+    # a confirmation is already told by the status
+    change = None if last is None or last["action"] == "confirm" else _change_text(last)
     rows = [
         ("Type", kind), ("Role", variable.role), ("Source", source), ("Instrument", variable.instrument),
         ("Question text", variable.question_text), ("Derivation", variable.derivation),
@@ -118,12 +158,12 @@ def display_rows(variable: Variable, confirmed_on: str | None,
         ("Levels", _codes_text(variable.levels)),
         ("True values", ", ".join(variable.true_values or [])),
         ("False values", ", ".join(variable.false_values or [])),
-        ("Possible range", _range(variable.minimum, variable.maximum)),
-        ("Plausible range", _range(variable.plausible_min, variable.plausible_max)),
+        ("Possible range", _range(variable.minimum, variable.maximum, variable.unit)),
+        ("Plausible range", _range(variable.plausible_min, variable.plausible_max, variable.unit)),
         ("Missing codes", _codes_text(variable.missing_codes)),
         ("Largest missing share", None if variable.max_missing is None
          else f"{100 * variable.max_missing:g}%"),
-        ("Checks", checks), ("Pattern", variable.pattern), ("Dates", dates),
+        ("Checks", checks), ("Pattern", variable.pattern), ("Date format", dates),
         ("Earlier names", ", ".join(variable.aliases or [])), ("References", variable.references),
         ("Sensitivity", variable.sensitivity), ("Status", status), ("Last change", change),
     ]

@@ -140,7 +140,7 @@ def test_a_study_kept_through_the_cli_writes_its_writeup(cli, study: Path, tmp_p
     # the record flow: 80 received in the analysed drop, 3 removed (shown as <5), 77 analysed
     assert f"Removed: Exclude stays of members under 21 [D{excluded}] −<5" in text
     assert "Analysed 77" in text
-    assert f"Keep systolic_bp as measured [D{new}; post hoc]" in text
+    assert f"Keep systolic_bp as measured. [D{new}; post hoc]" in text
     assert f"[D{split}]" in text and "Random seed: 7." in text
     appendix = text.split("Appendix: decisions not in force")[1]
     assert f"D{old} Winsorise systolic_bp" in appendix and f"superseded by D{new}" in appendix
