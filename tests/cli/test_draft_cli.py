@@ -193,3 +193,18 @@ def test_draft_updates_keep_declared_codes_and_labels(cli, study: Path, visits: 
     plan = run_json(cli, "var", "show", "plan")
     assert [(lv["code"], lv["label"]) for lv in plan["levels"]] == [
         ("basic", "Basic plan"), ("plus", None), ("premium", None), ("legacy", None), ("family", None)]
+
+
+def test_human_output_fits_100_columns(cli, tmp_path, monkeypatch) -> None:  # type: ignore[no-untyped-def]
+    from studylog.cli import render
+
+    monkeypatch.setattr(render.console, "width", 100)
+    rows = "\n".join(f"R{i:04d},2026-01-{1 + i % 28:02d} {i % 24:02d}:{i % 60:02d},{i % 7}.5" for i in range(60))
+    path = tmp_path / "trips.csv"
+    path.write_text("trip,started_at,minutes\n" + rows + "\n", encoding="utf-8")
+    result = cli("draft", str(path))
+    assert result.exit_code == 0, result.output
+    assert max(len(line.rstrip()) for line in result.stdout.splitlines()) <= 100
+    # the observed range of a date-time reads as written, minutes without the ':00' seconds and 'T'
+    assert "2026-01-01 00:00 .." in result.stdout and "T00:00:00" not in result.stdout
+    assert "would add 3" in result.stdout

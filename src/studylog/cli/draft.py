@@ -90,6 +90,14 @@ def _details(row: dict[str, Any]) -> str:
     return ""
 
 
+def _when(value: Any) -> Any:
+    """An ISO date-time for the screen: a space for the 'T', whole minutes without ':00' seconds."""
+    if not isinstance(value, str) or "T" not in value:
+        return value
+    text = value.replace("T", " ", 1)
+    return text[:-3] if len(text) == 19 and text.endswith(":00") else text
+
+
 def _shortened(values: list[str], limit: int = 36) -> str:
     text = ", ".join(values[:3])
     return text if len(text) <= limit else text[: limit - 1] + "…"
@@ -103,7 +111,7 @@ def _show(document: dict[str, Any]) -> None:
     for row in document["variables"]:
         evidence = row["evidence"]
         share = evidence["share_parsed"]
-        extremes = f"{row['minimum']} .. {row['maximum']}" if row["minimum"] is not None else ""
+        extremes = f"{_when(row['minimum'])} .. {_when(row['maximum'])}" if row["minimum"] is not None else ""
         role = f" ({row['role']})" if row["role"] and row["role"] != row["type"] else ""
         codes = ", ".join(f"{c['code']} ×{c['count']}" for c in row["missing_codes"])
         entries.append([row["name"], row["type"] + role, _details(row), codes, row["action"]])
@@ -111,9 +119,14 @@ def _show(document: dict[str, Any]) -> None:
             row["name"], f"{share:.1%}" if share is not None else "", evidence["distinct"], evidence["empty"],
             extremes, _shortened(evidence["examples"]), _shortened(evidence["not_parsed"]),
         ])
-    render.table(["column", "type", "details", "missing codes", "action"], entries, title="Proposed entries")
-    render.table(["column", "parsed", "distinct", "empty", "observed range", "examples", "not parsed"],
-                 evidence_rows, title="Evidence")
+    name = render.Column("column", wrap=False)
+    render.compact_table([name, render.Column("type", wrap=False), render.Column("details"),
+                          render.Column("missing codes"), render.Column("action", wrap=False)],
+                         entries, title="Proposed entries")
+    render.compact_table([name, render.Column("parsed", numeric=True), render.Column("distinct", numeric=True),
+                          render.Column("empty", numeric=True), render.Column("observed range"),
+                          render.Column("examples"), render.Column("not parsed")],
+                         evidence_rows, title="Evidence")
     notes = [(row["name"], note) for row in document["variables"] for note in row["evidence"]["notes"]]
     for name, note in notes:
         render.say(f"  {name}: {note}")
@@ -122,7 +135,7 @@ def _show(document: dict[str, Any]) -> None:
     else:
         render.say("key: no column or pair of columns is complete and unique")
     if document["disagreements"]:
-        render.table(
+        render.compact_table(
             ["variable", "field", "dictionary", "file", "status", "note"],
             [[d["variable"] or "(table)", d["field"], d["dictionary"], d["file"], d["status"], d["note"]]
              for d in document["disagreements"]],
