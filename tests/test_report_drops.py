@@ -103,7 +103,7 @@ def kept(cli, study: Path, tmp_path: Path) -> dict[str, int]:  # type: ignore[no
     ids["age"] = _id(cli("log", "Set placeholder ages to missing", "--kind", "cleaning",
                          "--var", "age", "--json"))
     ids["repeats"] = _id(cli("log", "Keep the first of rows delivered twice", "--kind", "duplicates",
-                             "--drop", str(ids["checked"]), "--json"))
+                             "--drop", str(ids["checked"]), "--removed", "3", "--json"))
     ids["proposed"] = _id(cli("log", "Merge district Zeta into C", "--kind", "merge-levels",
                               "--var", "district", "--proposed", "--json"))
     ids["reverted"] = _id(cli("log", "Cap score at 10", "--kind", "cleaning", "--var", "score", "--json"))
@@ -112,7 +112,7 @@ def kept(cli, study: Path, tmp_path: Path) -> dict[str, int]:  # type: ignore[no
                             "--var", "member_id", "--json"))
     _ok(cli("var", "set", "score", "--label", "Score given by the member"))
     later = _members(tmp_path / "m2.csv", clean[:30])
-    ids["changed"] = json.loads(_ok(cli("check", str(later), "--label", "March", "--json")))["drop"]["id"]
+    ids["changed"] = json.loads(_ok(cli("check", str(later), "--label", "March", "--analysis", "--json")))["drop"]["id"]
     ids["chosen"] = json.loads(_ok(cli("check", str(later), "--label", "March on v1", "--dictionary", "v1",
                                        "--json")))["drop"]["id"]
     return ids
@@ -185,8 +185,14 @@ def test_findings_are_resolved_by_later_decisions_on_their_variable_or_drop(kept
     page = _Text()
     page.feed(_render("methods", "html"))
     assert f"#D{kept['age']}" in page.hrefs and f"#D{kept['repeats']}" in page.hrefs
-    html = _render("methods", "html")
-    assert f'id="D{kept["age"]}"' in html  # the link's target is in the same document
+    # the decision that removed the repeated rows is a step of the record flow, not of a section
+    flow = _context("methods")["methods"]["flows"][0]
+    assert [step["id"] for step in flow["steps"]] == [kept["repeats"]]
+    # every link's target is in the same document (a decision told in the sections or the record flow)
+    for document in ("methods", "writeup"):
+        html = _render(document, "html")
+        for href in {h for h in page.hrefs if h.startswith("#")}:
+            assert f'id="{href[1:]}"' in html, (document, href)
 
 
 def test_each_drop_names_the_dictionary_it_was_checked_against(kept: dict[str, int]) -> None:
