@@ -413,3 +413,22 @@ def test_prose_filters() -> None:
         "", "a", "a and b", "a, b and c"]
     assert [report.sentence(x) for x in ("ends", "ends.", "asks?", "(aside)", "", None)] == [
         "ends.", "ends.", "asks?", "(aside).", "", ""]
+
+
+def test_markdown_escapes_only_what_markdown_needs() -> None:
+    env = report.environment("md")
+    inline, cell, block = env.filters["inline"], env.filters["cell"], env.filters["md"]
+    # text a reader wrote, as written
+    assert inline("a < b & c > d, x <= 3") == "a < b & c > d, x <= 3"
+    assert block("**bold** and `code`") == "**bold** and `code`"
+    # what would open a block where the text starts a line
+    assert inline("# not a heading") == "\\# not a heading" and inline("2. not a list") == "2\\. not a list"
+    assert inline("> not a quote") == "\\> not a quote" and inline("- not an item") == "\\- not an item"
+    assert inline("-99 = refused") == "-99 = refused"
+    # in a table cell nothing opens a block; the pipe is escaped
+    assert cell("#N/A | none") == "#N/A \\| none"
+    # what a viewer passing HTML through would run or fetch
+    assert inline("<b onclick=x()>") == "\\<b onclick=x()>" and inline("&#60;b&#62;") == "\\&#60;b\\&#62;"
+    assert block("![t](http://x.invalid/t.png)") == "!\\[t](http://x.invalid/t.png)"
+    assert block("[a](JavaScript:alert(1))") == "[a]\\(JavaScript:alert(1))"
+    assert inline("ends in a backslash \\") == "ends in a backslash \\\\"

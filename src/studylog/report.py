@@ -114,17 +114,20 @@ def _md_block(value: Any) -> str:
     return "" if value is None else _neutral(str(value)).strip()
 
 
-def _md_inline(value: Any) -> str:
-    if value is None:
-        return ""
-    text = _leading(" ".join(_neutral(str(value)).split()))
+def _one_line(value: Any) -> str:
+    text = " ".join(_neutral(str(value)).split())
     # a trailing backslash would escape the template's next character (the "*" closing bold text)
     trailing = len(text) - len(text.rstrip("\\"))
     return text + "\\" if trailing % 2 else text
 
 
+def _md_inline(value: Any) -> str:
+    return "" if value is None else _leading(_one_line(value))
+
+
 def _md_cell(value: Any) -> str:
-    return _md_inline(_plain(value)).replace("|", "\\|")
+    # inside a table cell nothing opens a block: only the pipe needs escaping
+    return _one_line(_plain(value)).replace("|", "\\|")
 
 
 def _html_block(value: Any) -> Markup:
