@@ -170,7 +170,7 @@ class _progress:
             return None
         from rich.progress import Progress
 
-        self.bar = Progress(console=render.err_console, transient=True)
+        self.bar = Progress(console=render.rich_console(stderr=True), transient=True)
         self.bar.start()
         self.task = self.bar.add_task("checking", total=None)
         return self.update

@@ -29,7 +29,7 @@ def progress_bar(label: str) -> Iterator[Callable[[int, int], None] | None]:
     from rich.progress import BarColumn, DownloadColumn, Progress, TextColumn, TimeRemainingColumn
 
     bar = Progress(TextColumn("{task.description}"), BarColumn(), DownloadColumn(), TimeRemainingColumn(),
-                   console=render.err_console, transient=True)
+                   console=render.rich_console(stderr=True), transient=True)
     task = bar.add_task(label, total=None)
 
     def update(done: int, total: int) -> None:

@@ -13,10 +13,11 @@ from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
 from typing import Any
 
-from rich import box
-from rich.console import Console
-from rich.table import Table
-from rich.text import Text
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    from rich.console import Console
+
 
 def _width() -> int | None:
     """Rich's own width on a terminal; 120 columns when piped (rich would use 80), unless COLUMNS says."""
@@ -25,8 +26,47 @@ def _width() -> int | None:
     return 120
 
 
-console = Console(highlight=False, width=_width())
-err_console = Console(stderr=True, highlight=False, soft_wrap=True)
+class _LazyConsole:
+    """A rich console made on first use: commands that print one plain line never import rich.
+
+    Attribute reads and writes go to the console itself (``console.print``, ``console.width = 100``).
+    Slots, not a ``__dict__``, so that tools which patch ``width`` see and restore the console's own.
+    """
+
+    __slots__ = ("_settings", "_console")
+
+    def __init__(self, **settings: Any) -> None:
+        object.__setattr__(self, "_settings", settings)
+        object.__setattr__(self, "_console", None)
+
+    def _real(self) -> Console:
+        made = object.__getattribute__(self, "_console")
+        if made is None:
+            from rich.console import Console
+
+            settings = dict(object.__getattribute__(self, "_settings"))
+            if settings.pop("wide_when_piped", False):
+                settings["width"] = _width()
+            made = Console(**settings)
+            object.__setattr__(self, "_console", made)
+        return made
+
+    def __getattr__(self, name: str) -> Any:
+        if name.startswith("__"):
+            raise AttributeError(name)
+        return getattr(self._real(), name)
+
+    def __setattr__(self, name: str, value: Any) -> None:
+        setattr(self._real(), name, value)
+
+
+console: Console = _LazyConsole(highlight=False, wide_when_piped=True)  # type: ignore[assignment]
+err_console: Console = _LazyConsole(stderr=True, highlight=False, soft_wrap=True)  # type: ignore[assignment]
+
+
+def rich_console(stderr: bool = False) -> Console:
+    """The real console behind ``console`` / ``err_console``, for rich objects that need one (progress)."""
+    return (err_console if stderr else console)._real()  # type: ignore[attr-defined]
 
 
 def escape(text: str) -> str:
@@ -69,6 +109,8 @@ def table(
     """A rich table; cells are escaped so that text from the store never acts as markup."""
     from rich.markup import escape
 
+    from rich.table import Table
+
     grid = Table(title=title, show_lines=False, title_justify="left")
     for name in columns:
         grid.add_column(name, overflow="fold")
@@ -102,6 +144,10 @@ def compact_table(
     """
     from rich.markup import escape
 
+    from rich import box
+    from rich.table import Table
+    from rich.text import Text
+
     grid = Table(title=escape(title) if title else None, title_justify="left", box=box.SIMPLE_HEAD,
                  pad_edge=False, padding=(0, 1, 0, 0), show_edge=False, title_style="bold")
     specs = [Column(spec) if isinstance(spec, str) else spec for spec in columns]
@@ -122,6 +168,8 @@ def fields(pairs: Iterable[tuple[str, Any]], *, title: str | None = None) -> Non
     """A two-column listing of one record's fields, skipping empty ones."""
     from rich.markup import escape
 
+    from rich.table import Table
+
     grid = Table(title=title, show_header=False, title_justify="left", box=None, padding=(0, 2, 0, 0))
     grid.add_column(style="bold")
     grid.add_column(overflow="fold")
@@ -132,10 +180,16 @@ def fields(pairs: Iterable[tuple[str, Any]], *, title: str | None = None) -> Non
     console.print(grid)
 
 
-def say(message: str) -> None:
-    """A line for people, escaped so that brackets in names print as they are."""
-    from rich.markup import escape
+PLAIN_LINE = 80
 
+
+def say(message: str) -> None:
+    """A line for people. A short one is written as it is, so that short answers need no rich at all;
+    a longer one is wrapped by the console at its width (markup in the text is escaped, never run)."""
+    if len(message) <= PLAIN_LINE and "\n" not in message:
+        sys.stdout.write(message + "\n")
+        sys.stdout.flush()
+        return
     console.print(escape(message))
 
 
@@ -148,6 +202,6 @@ def created(kind: str, record_id: int, as_json: bool, extra: dict[str, Any] | No
 
 
 def warn(message: str) -> None:
-    from rich.markup import escape
-
-    err_console.print(f"warning: {escape(message)}")
+    """One warning line on stderr."""
+    sys.stderr.write(f"warning: {message}\n")
+    sys.stderr.flush()
