@@ -472,6 +472,28 @@ def _keep_current(path: Path, kept: Path) -> bool:
         return False
 
 
+def _restore_through_locks(backup_db: sqlite3.Connection, path: Path) -> None:
+    """Copy a backup over the live store inside one SQLite write transaction.
+
+    The backup file is in rollback-journal mode, the live store in WAL mode, and the backup API copies
+    page 1 with its journal-mode bytes. Staging the backup as a WAL-mode copy first means the pages that
+    land in the live store's write-ahead log agree with the file they belong to, so a kill at any moment
+    leaves the old store or the new one, never a mix.
+    """
+    staged = path.with_name(f".{path.name}.{os.getpid()}.restoring")
+    try:
+        _copy(backup_db, staged)
+        with closing(sqlite3.connect(str(staged))) as source:
+            source.execute("PRAGMA journal_mode = WAL")
+            with closing(sqlite3.connect(str(path), timeout=10)) as live:
+                live.execute("PRAGMA journal_mode = WAL")
+                # through SQLite's locks: other processes see the old store or the new one
+                source.backup(live)
+    finally:
+        for side in ("", "-wal", "-shm"):
+            staged.with_name(staged.name + side).unlink(missing_ok=True)
+
+
 def _swap_in(backup_db: sqlite3.Connection, path: Path) -> None:
     """Put a backup in place of a store SQLite cannot read: a new file, renamed over the old one."""
     partial = path.with_name(f".{path.name}.{os.getpid()}.restoring")
@@ -510,10 +532,7 @@ def restore(location: StoreLocation, source_file: Path, *, force: bool = False) 
             path.parent.mkdir(parents=True, exist_ok=True)
         with closing(sqlite3.connect(f"file:{source_file}?mode=ro", uri=True)) as backup_db:
             if readable:
-                with closing(sqlite3.connect(str(path), timeout=10)) as live:
-                    # through SQLite's locks: other processes see the old store or the new one
-                    backup_db.backup(live)
-                    live.execute("PRAGMA journal_mode = WAL")
+                _restore_through_locks(backup_db, path)
             else:
                 _swap_in(backup_db, path)
     except sqlite3.Error as exc:
