@@ -128,9 +128,14 @@ def _summaries(checks: Any) -> dict[str, Any]:
 
 
 def _update_summaries(summaries: dict[str, Any], context: Any) -> None:
+    # a bound variable's cells are read once, by the check (``BatchContext.parsed``), for both
     bound = {b.variable.name: b.column for b in context.plan.bindings}
     for name, summary in summaries.items():
-        summary.update(context.column(bound.get(name, name)))
+        column = bound.get(name)
+        if column is None:
+            summary.update(context.column(name))
+        else:
+            summary.update(context.column(column), parsed=context.parsed(name))
 
 
 def _more_passengers(session: Session, owner: DataTable, checks: Any, spec: Any = None,

@@ -20,6 +20,7 @@ and free-text variables.
 
 from __future__ import annotations
 
+import threading
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass, field
 from typing import Any
@@ -129,6 +130,17 @@ class BatchContext:
         self._digests: dict[str, Any] = {}
         self._key_digest: Any = None
         self._row_digest: Any = None
+        # the rules and the observers run in two threads over the same batch: each shared value is
+        # computed once, the second asker waits for the first (one lock per value)
+        self._guard = threading.Lock()
+        self._locks: dict[tuple[str, str], threading.Lock] = {}
+
+    def _lock(self, kind: str, name: str) -> threading.Lock:
+        with self._guard:
+            lock = self._locks.get((kind, name))
+            if lock is None:
+                lock = self._locks[(kind, name)] = threading.Lock()
+            return lock
 
     def column(self, name: str) -> Any:
         """The raw strings of a file column."""
@@ -144,16 +156,20 @@ class BatchContext:
         from studylog.data import typed
 
         if variable not in self._parsed:
-            bound = self.plan.binding(variable)
-            assert bound is not None, variable
-            self._parsed[variable] = typed.parse(self.column(bound.column), bound.variable)
+            with self._lock("parsed", variable):
+                if variable not in self._parsed:
+                    bound = self.plan.binding(variable)
+                    assert bound is not None, variable
+                    self._parsed[variable] = typed.parse(self.column(bound.column), bound.variable)
         return self._parsed[variable]
 
     def digest(self, column: str) -> Any:
         from studylog.data.repeats import text_digests
 
         if column not in self._digests:
-            self._digests[column] = text_digests(self.column(column))
+            with self._lock("digest", column):
+                if column not in self._digests:
+                    self._digests[column] = text_digests(self.column(column))
         return self._digests[column]
 
     def key_digest(self) -> Any:
@@ -163,19 +179,26 @@ class BatchContext:
         if not self.plan.key_columns:
             return None
         if self._key_digest is None:
-            self._key_digest = combine([self.digest(c) for c in self.plan.key_columns])
+            with self._lock("key", ""):
+                if self._key_digest is None:
+                    self._key_digest = combine([self.digest(c) for c in self.plan.key_columns])
         return self._key_digest
 
     def row_digest(self) -> Any:
         """The 16-byte digest of each whole row: every column of the file, in the order of their names.
 
-        Name order, so that the same records with their columns reordered have the same row digests
-        (the record comparison between drops relies on it; repeated rows do not depend on it).
+        Combined (``repeats.combine``) from the cells' digests, which the key and unique rules and the
+        record digests share, so that a row costs one fold per cell rather than a join and a digest of
+        the joined text. Two rows have the same digest exactly when every cell has (an empty cell's
+        digest differs from that of every text). Name order, so that the same records with their
+        columns reordered have the same row digests.
         """
-        from studylog.data.repeats import row_digests
+        from studylog.data.repeats import combine
 
         if self._row_digest is None:
-            self._row_digest = row_digests([self.column(c) for c in sorted(self.plan.columns)])
+            with self._lock("row", ""):
+                if self._row_digest is None:
+                    self._row_digest = combine([self.digest(c) for c in sorted(self.plan.columns)])
         return self._row_digest
 
     def examples(self, mask: Any, columns: Sequence[str], *, limit: int = EXAMPLES) -> list[Example]:

@@ -104,14 +104,35 @@ class DistinctEstimate:
 
 
 def hash_values(values: pa.Array | np.ndarray) -> np.ndarray:
-    """A 64-bit hash per value (pandas' vectorised hashing: SipHash for text, a mixer for numbers)."""
+    """A 64-bit hash per value, vectorised without pandas.
+
+    Text: the first lane of ``repeats.text_digests`` (the check's own cell digest); numbers: the bits of
+    the float64 (``-0.0`` folded onto ``0.0``) through the SplitMix64 finaliser. Only the k smallest
+    hashes matter (k-minimum-values), so any well-mixed 64-bit hash does.
+    """
     import numpy as np
-    import pandas as pd
     import pyarrow as pa
 
-    if isinstance(values, (pa.Array, pa.ChunkedArray)):
+    from studylog.data.repeats import _finalise, text_digests
+
+    if isinstance(values, pa.ChunkedArray):
+        values = values.combine_chunks()
+    if isinstance(values, pa.Array):
+        if pa.types.is_string(values.type) or pa.types.is_large_string(values.type):
+            return text_digests(values)[0]
         values = values.to_numpy(zero_copy_only=False)
-    return pd.util.hash_array(np.asarray(values), categorize=False)
+    numbers = np.asarray(values)
+    if numbers.dtype.kind in "iub":
+        numbers = numbers.astype(np.float64)
+    if numbers.dtype.kind == "M":
+        numbers = numbers.astype(np.int64).astype(np.float64)
+    if numbers.dtype.kind == "f":
+        bits = (numbers.astype(np.float64) + 0.0).view(np.uint64)
+        with np.errstate(over="ignore"):
+            return _finalise(bits ^ np.uint64(0x9E3779B97F4A7C15))
+    import pyarrow as pa  # other objects: through their text
+
+    return text_digests(pa.array([str(v) for v in numbers], pa.string()))[0]
 
 
 class LevelCounts:
@@ -354,6 +375,27 @@ class NumericSummary:
         return self.distinct.estimate(), False
 
 
+def _parse_numbers(text: pa.Array) -> pa.Array:
+    """float64 of each text in decimal notation, null elsewhere and where not finite ('1e309')."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    valid = pc.fill_null(pc.match_substring_regex(text, NUMBER_PATTERN), False)
+    numbers = pc.cast(pc.if_else(valid, text, pa.scalar(None, text.type)), pa.float64())
+    return pc.if_else(pc.fill_null(pc.is_finite(numbers), False), numbers, pa.scalar(None, pa.float64()))
+
+
+def _finite_numbers(present: pa.Array) -> np.ndarray:
+    import numpy as np
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    valid = pc.match_substring_regex(present, NUMBER_PATTERN)
+    numbers = pc.cast(pc.filter(present, valid), pa.float64()).to_numpy(zero_copy_only=False)
+    # '1e309' matches the pattern but overflows to inf: not a finite number (the check agrees)
+    return numbers[np.isfinite(numbers)]
+
+
 def outlier_counts(sorted_values: np.ndarray) -> dict[str, int | None]:
     """Tukey fences (1.5 and 3 x the spread between Tukey's hinges) and modified z-scores (|M| > 3.5).
 
@@ -402,8 +444,13 @@ class ColumnSummary:
         self.date_max: str | None = None
         self.dates = LevelCounts() if self.type in DATE_TYPES else None
 
-    def update(self, strings: pa.Array, spec: VariableSpec | None = None) -> None:
-        """Add one batch of a column (strings, null or empty where the cell is empty)."""
+    def update(self, strings: pa.Array, spec: VariableSpec | None = None, *, parsed: Any = None) -> None:
+        """Add one batch of a column (strings, null or empty where the cell is empty).
+
+        ``parsed``: the same cells already read as this summary's variable by the check
+        (``typed.parse``, ``BatchContext.parsed``); its missing mask and typed values are reused instead
+        of reading the cells a second time. The profile is the same with or without it.
+        """
         import numpy as np
         import pyarrow as pa
         import pyarrow.compute as pc
@@ -412,6 +459,9 @@ class ColumnSummary:
             strings = strings.combine_chunks()
         if not pa.types.is_string(strings.type) and not pa.types.is_large_string(strings.type):
             strings = pc.cast(strings, pa.string())
+        if parsed is not None and self.spec is not None and self.type == self.spec.type:
+            self._update_parsed(strings, parsed)
+            return
         self.rows += len(strings)
         trimmed = pc.utf8_trim_whitespace(strings)
         empty = pc.fill_null(pc.equal(trimmed, ""), True)
@@ -419,24 +469,61 @@ class ColumnSummary:
         self.empty += int(pc.sum(empty).as_py() or 0)
         if self.codes:
             index = pc.index_in(trimmed, value_set=pa.array(self.codes, trimmed.type))
-            found = index.drop_null().to_numpy()
-            self.code_counts = (np.asarray(self.code_counts) +
-                                np.bincount(found, minlength=len(self.codes))).tolist()
+            self._count_codes(index)
             missing = pc.or_(missing, pc.is_valid(index))
         present_raw = pc.filter(strings, pc.invert(missing))
         present = pc.filter(trimmed, pc.invert(missing))
         self.present += len(present)
         if self.numeric is not None:
-            valid = pc.match_substring_regex(present, NUMBER_PATTERN)
-            numbers = pc.cast(pc.filter(present, valid), pa.float64()).to_numpy(zero_copy_only=False)
-            # '1e309' matches the pattern but overflows to inf: not a finite number (the check agrees)
-            numbers = numbers[np.isfinite(numbers)]
+            numbers = _finite_numbers(present)
             self.invalid += len(present) - len(numbers)
             self.numeric.update(numbers)
         elif self.dates is not None:
             self._update_dates(present)
         else:
             self.levels.update(present_raw)
+
+    def _count_codes(self, index: pa.Array) -> None:
+        import numpy as np
+
+        found = index.drop_null().to_numpy()
+        self.code_counts = (np.asarray(self.code_counts) +
+                            np.bincount(found, minlength=len(self.codes))).tolist()
+
+    def _update_parsed(self, strings: pa.Array, parsed: Any) -> None:
+        """``update`` from the check's reading of the cells (``typed.Parsed``): same counts, no re-parse."""
+        import numpy as np
+        import pyarrow as pa
+        import pyarrow.compute as pc
+
+        n = len(strings)
+        self.rows += n
+        self.empty += int(pc.sum(parsed.empty).as_py() or 0)
+        if self.codes:
+            coded = pc.and_(parsed.missing, pc.invert(parsed.empty))
+            if pc.any(coded).as_py():
+                trimmed = pc.utf8_trim_whitespace(pc.if_else(coded, strings, pa.scalar(None, strings.type)))
+                self._count_codes(pc.index_in(trimmed, value_set=pa.array(self.codes, trimmed.type)))
+        present = n - int(pc.sum(parsed.missing).as_py() or 0)
+        self.present += present
+        if self.numeric is not None:
+            values = parsed.values
+            if self.type == "integer" and pc.any(parsed.invalid).as_py():
+                # the stored profile takes any finite number in an integer column ('1.5'), as the
+                # summary of the raw text does; the check's reading calls it invalid
+                rest = pc.utf8_trim_whitespace(pc.if_else(parsed.invalid, strings,
+                                                          pa.scalar(None, strings.type)))
+                values = pc.coalesce(values, _parse_numbers(rest))
+            numbers = values.drop_null().to_numpy(zero_copy_only=False).astype(np.float64, copy=False)
+            self.invalid += present - len(numbers)
+            self.numeric.update(numbers)
+        elif self.dates is not None:
+            self.invalid += int(pc.sum(parsed.invalid).as_py() or 0)
+            self._add_dates(parsed.values.drop_null())
+        elif pa.types.is_string(parsed.values.type) or pa.types.is_large_string(parsed.values.type):
+            self.levels.update(parsed.values.drop_null())  # the raw text of the present cells
+        else:
+            self.levels.update(pc.filter(strings, pc.invert(parsed.missing)))
 
     def _update_dates(self, present: pa.Array) -> None:
         import pyarrow as pa
@@ -454,11 +541,15 @@ class ColumnSummary:
             attempt = pc.if_else(pc.fill_null(exact, False), attempt, None)
             parsed = attempt if parsed is None else pc.coalesce(parsed, attempt)
         self.invalid += int(parsed.null_count)
-        valid = parsed.drop_null()
+        self._add_dates(parsed.drop_null())
+
+    def _add_dates(self, valid: pa.Array) -> None:
+        import pyarrow as pa
+        import pyarrow.compute as pc
+
         if len(valid) == 0:
             return
-        unit = pa.date32() if self.type == "date" else pa.timestamp("s")
-        values = pc.cast(valid, unit) if self.type == "date" else valid
+        values = pc.cast(valid, pa.date32()) if self.type == "date" else valid
         self.dates.update(values)
         low, high = pc.min(values).as_py().isoformat(), pc.max(values).as_py().isoformat()
         self.date_min = low if self.date_min is None else min(self.date_min, low)
