@@ -164,8 +164,13 @@ class Tracker:
             outcome.records = self._records(session, later)
         if drop is not None:
             if later is not None:
-                for kind, seq, data in later.to_chunks():
-                    session.add(DigestChunk(drop_id=drop.id, seq=seq, kind=kind, data=data))
+                # one chunk at a time: written, then let go (a drop's digests are never all in memory)
+                for kind, seq, data in later.iter_chunks():
+                    chunk = DigestChunk(drop_id=drop.id, seq=seq, kind=kind, data=data)
+                    session.add(chunk)
+                    session.flush()
+                    session.expunge(chunk)
+                    del chunk, data
             drop.against_id = outcome.against_id
             drop.comparison = {"drift": outcome.drift} | (
                 {"records": outcome.records} if outcome.records is not None else {})

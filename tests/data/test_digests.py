@@ -154,3 +154,22 @@ def test_keys_sharing_their_top_bits_stay_distinct() -> None:
     assert [a for a, _ in ordered] == sorted(a for a, _ in ordered)
     found = digests.lookup(k0[first], k1[first], k0, k1)
     assert all(pairs[first[f]] == p for f, p in zip(found, pairs))
+
+
+def test_digests_written_to_a_temporary_file_during_the_pass_equal_those_kept_in_memory() -> None:
+    # a large drop's digests wait in a temporary file, chunk by chunk; stored and compared, they must be
+    # exactly the digests of the same drop kept in memory (reference: the in-memory digester)
+    frame = pa.Table.from_pandas(seeded_drop(50, 5), preserve_index=False)
+    kept = records(frame, ["site", "member"])
+    digester = RecordDigester(["site", "member"], frame.column_names)
+    digester.spill_limit = 6
+    for part in frame.to_batches(max_chunksize=4):
+        digester.update(part)
+    spilled = digester.finish()
+    assert isinstance(spilled, digests.SpilledRecords) and spilled.rows == kept.rows == 50
+    assert np.array_equal(spilled.digests, kept.digests)
+    assert spilled.to_chunks() == kept.to_chunks()
+    # (site, member) is unique in the seeded drop: compared with itself, every record is unchanged
+    result = compare_records(Records.from_chunks(spilled.to_chunks()), spilled)
+    assert result.unchanged == 50 and result.new == result.vanished == result.changed == 0
+    assert result.repeated_later == 0

@@ -25,6 +25,10 @@ Collision probability. The digest is not cryptographic; it behaves as a 128-bit 
 (repeats.py), so for n distinct keys the chance that any two share a digest is about n^2 / 2^129 (about
 1.5e-25 for 10 million keys) and the chance that a changed record keeps its row digest about 2^-128.
 
+Memory. Past ``CHUNK_ROWS`` records the digester writes its digests to a temporary file as it goes
+(:class:`SpilledRecords`), and the drop's chunks are made and stored one at a time; the comparison reads
+both drops' digests (32 bytes a record each). The stored format is unchanged (FORMAT 1).
+
 Layout in the store (``digest_chunks``, one drop): ``meta`` (seq 0, JSON: format, key, columns, rows,
 chunk size), then per chunk c of CHUNK_ROWS records in file order (seq 3c + 1, 3c + 2, 3c + 3):
 ``records`` (n x 4
@@ -42,7 +46,7 @@ from __future__ import annotations
 
 import json
 from dataclasses import dataclass, field
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from typing import TYPE_CHECKING, Any
 
 if TYPE_CHECKING:
@@ -54,6 +58,8 @@ CHUNK_ROWS = 1 << 20
 # per-cell digests are kept while the drop has at most this many cells (2 bytes each: 64 MB)
 COLUMN_DIGEST_CELLS = 32_000_000
 EXAMPLES = 20
+# bytes of one record in the digester's temporary file: key digest, row digest (4 x uint64)
+SPILL_RECORD = 32
 SEPARATOR = "\x1f"
 EMPTY_MARK = "\x1e"
 MASKED_KEY = "[masked]"
@@ -146,25 +152,33 @@ class Records:
                                       for part in (joined or "").split(SEPARATOR)]
         return [result.get(int(i), []) for i in wanted]
 
+    def chunk_digests(self, start: int, stop: int) -> np.ndarray:
+        """The (m, 4) digests of records ``start`` to ``stop`` (file order)."""
+        return self.digests[start:stop]
+
     def to_chunks(self) -> list[tuple[str, int, bytes]]:
         """(kind, seq, data) rows for the store's ``digest_chunks``."""
+        return list(self.iter_chunks())
+
+    def iter_chunks(self) -> Iterator[tuple[str, int, bytes]]:
+        """``to_chunks`` one chunk at a time, so that a caller can store each before the next is made."""
         import numpy as np
 
         meta = {"format": FORMAT, "key": self.key, "columns": self.columns, "rows": self.rows,
                 "chunk_rows": CHUNK_ROWS, "cell_digests": self.cells is not None,
                 "method": "SipHash-2-4 x 2 of cells joined by U+001F"}
-        chunks = [("meta", 0, json.dumps(meta).encode())]
+        yield ("meta", 0, json.dumps(meta).encode())
         # ``digest_chunks`` has one seq per (drop, seq): chunk c of each kind takes 3c + 1, + 2, + 3
         for number, start in enumerate(range(0, self.rows, CHUNK_ROWS)):
-            stop = start + CHUNK_ROWS
+            stop = min(start + CHUNK_ROWS, self.rows)
             # lane-major: the chunk's key lanes, then its row lanes (each lane contiguous)
-            lanes = np.ascontiguousarray(self.digests[start:stop].T, dtype="<u8")
-            chunks.append(("records", 3 * number + 1, lanes.tobytes()))
+            lanes = np.ascontiguousarray(self.chunk_digests(start, stop).T, dtype="<u8")
+            yield ("records", 3 * number + 1, lanes.tobytes())
+            del lanes
             if number < len(self.key_texts):
-                chunks.append(("keys", 3 * number + 2, self.key_texts[number]))
+                yield ("keys", 3 * number + 2, self.key_texts[number])
             if self.cells is not None:
-                chunks.append(("columns", 3 * number + 3, self.cells[start:stop].astype("<u2").tobytes()))
-        return chunks
+                yield ("columns", 3 * number + 3, self.cells[start:stop].astype("<u2").tobytes())
 
     @classmethod
     def from_chunks(cls, chunks: list[tuple[str, int, bytes]]) -> Records:
@@ -188,6 +202,37 @@ class Records:
                                     for s in sorted(stored)])
         return cls(key=list(meta["key"]), columns=list(meta["columns"]), digests=digests,
                    key_texts=[keys[s] for s in sorted(keys)], cells=cells)
+
+
+class SpilledRecords(Records):
+    """:class:`Records` whose digests wait in a temporary file (written chunk by chunk during the pass).
+
+    ``digests`` reads them all back when asked (the comparison needs them); ``iter_chunks`` reads one
+    chunk at a time, so storing a drop's digests holds one chunk in memory, never the whole drop.
+    """
+
+    def __init__(self, key: list[str], columns: list[str], spill: Any, rows: int,
+                 key_texts: list[bytes], cells: np.ndarray | None) -> None:
+        self.key, self.columns, self.key_texts, self.cells = key, columns, key_texts, cells
+        self._spill = spill
+        self._rows = rows
+
+    @property  # type: ignore[override]
+    def rows(self) -> int:
+        return self._rows
+
+    @property  # type: ignore[override]
+    def digests(self) -> np.ndarray:
+        return self.chunk_digests(0, self._rows)
+
+    def chunk_digests(self, start: int, stop: int) -> np.ndarray:
+        import numpy as np
+
+        stop = min(stop, self._rows)
+        count = max(stop - start, 0)
+        self._spill.seek(start * SPILL_RECORD)
+        out = np.fromfile(self._spill, dtype="<u8", count=4 * count).reshape(count, 4)
+        return out.astype(np.uint64, copy=False)
 
 
 def lane_major(parts: list[np.ndarray]) -> np.ndarray:
@@ -232,7 +277,11 @@ class RecordDigester:
         self.key = list(key_columns)
         self.columns = sorted(all_columns)
         self.masked = masked
+        # (m, 4) digests of the batches not yet written to the temporary file
         self.parts: list[np.ndarray] = []
+        self.pending_rows = 0
+        self.spill: Any = None
+        self.spill_limit = CHUNK_ROWS
         self.cell_parts: list[np.ndarray] | None = []
         self.texts: list[pa.Array] = []
         self.pending_texts = 0
@@ -267,6 +316,9 @@ class RecordDigester:
         row_digests = _stack(combine([lanes(c) for c in present])) if present else \
             np.zeros((n, 2), np.uint64)
         self.parts.append(np.hstack([key_digests, row_digests]))
+        self.pending_rows += n
+        if self.pending_rows >= self.spill_limit:
+            self._spill()
         self.rows += n
         if self.cell_parts is not None:
             if self.rows * max(len(self.columns), 1) > COLUMN_DIGEST_CELLS:
@@ -291,6 +343,19 @@ class RecordDigester:
             rest = joined.slice(CHUNK_ROWS)
             self.texts, self.pending_texts = [rest], len(rest)
 
+    def _spill(self) -> None:
+        """Write the pending digests to the temporary file (a drop's digests never all wait in memory)."""
+        import tempfile
+
+        import numpy as np
+
+        if self.spill is None:
+            self.spill = tempfile.TemporaryFile(prefix="studylog-digests-")  # noqa: SIM115 - kept open
+        self.spill.seek(0, 2)
+        for part in self.parts:
+            np.ascontiguousarray(part, dtype="<u8").tofile(self.spill)
+        self.parts, self.pending_rows = [], 0
+
     def finish(self) -> Records:
         import numpy as np
         import pyarrow as pa
@@ -299,12 +364,17 @@ class RecordDigester:
             joined = pa.concat_arrays([t.cast(pa.large_string()) for t in self.texts])
             self.key_texts.append(_encode_texts(joined))
             self.texts, self.pending_texts = [], 0
-        digests = lane_major([part.T for part in self.parts])
-        self.parts = []
         cells = None
         if self.cell_parts is not None:
             cells = (np.concatenate(self.cell_parts) if self.cell_parts
                      else np.zeros((0, len(self.columns)), dtype=np.uint16))
+            self.cell_parts = []
+        if self.spill is not None:
+            self._spill()
+            self.spill.flush()
+            return SpilledRecords(self.key, self.columns, self.spill, self.rows, self.key_texts, cells)
+        digests = lane_major([part.T for part in self.parts])
+        self.parts = []
         return Records(key=self.key, columns=self.columns, digests=digests,
                        key_texts=self.key_texts, cells=cells)
 
@@ -442,9 +512,9 @@ def compare_records(earlier: Records, later: Records) -> RecordComparison:
     """
     import numpy as np
 
-    earlier_first, earlier_repeats = unique_keys(earlier.digests)
-    later_first, later_repeats = unique_keys(later.digests)
-    e, d = earlier.digests, later.digests
+    e, d = earlier.digests, later.digests  # read once (a spilled drop reads its temporary file)
+    earlier_first, earlier_repeats = unique_keys(e)
+    later_first, later_repeats = unique_keys(d)
     found = lookup(e[:, 0][earlier_first], e[:, 1][earlier_first],
                    d[:, 0][later_first], d[:, 1][later_first])
     matched = found >= 0
@@ -465,7 +535,7 @@ def compare_records(earlier: Records, later: Records) -> RecordComparison:
             count = int(np.count_nonzero(earlier.cells[changed_theirs, i] != later.cells[changed_mine, j]))
             if count:
                 changed_columns[name] = count
-    no_key = int(np.count_nonzero((later.digests[:, 0] == 0) & (later.digests[:, 1] == 0)))
+    no_key = int(np.count_nonzero((d[:, 0] == 0) & (d[:, 1] == 0)))
     return RecordComparison(
         new=int(len(new_rows)), vanished=int(len(vanished_rows)), changed=int(len(changed_mine)),
         unchanged=int(matched.sum() - len(changed_mine)),

@@ -39,7 +39,8 @@ DELIMITERS = (",", ";", "\t", "|")
 UTF8_BOM = codecs.BOM_UTF8
 SAMPLE_BYTES = 1 << 16
 # A CSV block must hold whole rows; a row longer than a block is retried with a larger block, up to this.
-FIRST_BLOCK = 8 << 20
+# Small blocks keep the parser's memory small (see _csv_batches).
+FIRST_BLOCK = 1 << 20
 LARGEST_BLOCK = 1 << 30
 CHUNK = 1 << 20
 
@@ -508,15 +509,37 @@ def _physical_line_of_row(source: Source, row_number: int) -> int | None:
 
 
 def _csv_batches(source: Source) -> Iterator[pa.RecordBatch]:
+    """The data rows in batches of ``batch_rows``: small blocks of the parser, joined.
+
+    pyarrow parses a block at a time and its memory for a block is held (and kept by the allocator)
+    in proportion to the block size, so blocks are small (``FIRST_BLOCK``, 1 MB) and consecutive ones
+    are concatenated into batches of ``batch_rows`` rows, which keeps the per-batch work of the check
+    few and large.
+    """
+    import pyarrow as pa
+
     width = len(source.columns)
     names = [f"c{i}" for i in range(width)]
     first = True
+    pending: list[pa.RecordBatch] = []
+    pending_rows = 0
     for batch in _csv_raw_batches(source, width):
         if first:
             batch = batch.slice(1)  # the header row
             first = False
-        if batch.num_rows:
-            yield from _rechunk(batch.rename_columns(names).rename_columns(source.columns), source.batch_rows)
+        if not batch.num_rows:
+            continue
+        pending.append(batch.rename_columns(names))
+        pending_rows += batch.num_rows
+        if pending_rows >= source.batch_rows:
+            joined = pa.concat_batches(pending) if len(pending) > 1 else pending[0]
+            whole = (joined.num_rows // source.batch_rows) * source.batch_rows
+            yield from _rechunk(joined.slice(0, whole).rename_columns(source.columns), source.batch_rows)
+            rest = joined.slice(whole)
+            pending, pending_rows = ([rest] if rest.num_rows else []), rest.num_rows
+    if pending:
+        joined = pa.concat_batches(pending) if len(pending) > 1 else pending[0]
+        yield from _rechunk(joined.rename_columns(source.columns), source.batch_rows)
 
 
 def _rechunk(batch: pa.RecordBatch, rows: int) -> Iterator[pa.RecordBatch]:
