@@ -159,12 +159,10 @@ def _masked(variable: Variable) -> bool:
     return variable.sensitivity in MASKED_SENSITIVITY or variable.type in MASKED_TYPES
 
 
-def variable_facts(session: Session, variable: Variable, drop_id: int | None = None) -> dict[str, Any] | None:
-    """The variable's facts in the latest checked drop of its table (or in ``drop_id`` when it is one).
-
-    Values of direct-identifier and sensitive variables and of free text are not copied into the journal:
-    their facts keep counts only.
-    """
+def latest_profile(session: Session, variable: Variable,
+                   drop_id: int | None = None) -> tuple[Drop, Profile | None] | None:
+    """The latest checked drop of the variable's table (or ``drop_id`` when it is one of them) and the
+    variable's stored profile in it, found under its name or one of its aliases; None before any drop."""
     query = select(Drop).where(Drop.table_id == variable.table_id)
     drop = None
     if drop_id is not None:
@@ -177,6 +175,19 @@ def variable_facts(session: Session, variable: Variable, drop_id: int | None = N
     profile = session.scalars(
         select(Profile).where(Profile.drop_id == drop.id, Profile.variable.in_(names))
     ).first()
+    return drop, profile
+
+
+def variable_facts(session: Session, variable: Variable, drop_id: int | None = None) -> dict[str, Any] | None:
+    """The variable's facts in the latest checked drop of its table (or in ``drop_id`` when it is one).
+
+    Values of direct-identifier and sensitive variables and of free text are not copied into the journal:
+    their facts keep counts only.
+    """
+    found = latest_profile(session, variable, drop_id)
+    if found is None:
+        return None
+    drop, profile = found
     table_name = session.scalar(select(DataTable.name).where(DataTable.id == variable.table_id))
     facts: dict[str, Any] = {
         "table": table_name, "drop": drop.id, "drop_label": drop.label, "checked_at": drop.checked_at,

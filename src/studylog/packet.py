@@ -27,7 +27,8 @@ from studylog import study as study_records
 from studylog.clock import now
 from studylog.data.spec import MASKED_SENSITIVITY
 from studylog.errors import InputFileError, InvalidValue
-from studylog.store.models import DataTable, Drop, Finding, Link, Profile, Variable
+from studylog.journal import latest_profile
+from studylog.store.models import DataTable, Finding, Link, Variable
 
 FORMATS = ("md", "csv", "html")
 PACKET_LEVELS = 10
@@ -54,15 +55,10 @@ def _count(value: Any) -> Any:
 
 def last_drop_view(session: Session, variable: Variable) -> dict[str, Any] | None:
     """What the latest checked drop of the variable's table showed about it, safe to send out."""
-    drop = session.scalars(
-        select(Drop).where(Drop.table_id == variable.table_id).order_by(Drop.id.desc()).limit(1)
-    ).first()
-    if drop is None:
+    found = latest_profile(session, variable)
+    if found is None:
         return None
-    names = [variable.name, *(variable.aliases or [])]
-    profile = session.scalars(
-        select(Profile).where(Profile.drop_id == drop.id, Profile.variable.in_(names))
-    ).first()
+    drop, profile = found
     masked = _masked(variable)
     view: dict[str, Any] = {
         "drop": drop.id, "label": drop.label, "checked_at": drop.checked_at, "rows": _count(drop.rows),
@@ -86,7 +82,8 @@ def last_drop_view(session: Session, variable: Variable) -> dict[str, Any] | Non
             view["levels"] = _levels(variable, data)
             view.update(_range(variable, data))
     findings = session.scalars(
-        select(Finding).where(Finding.drop_id == drop.id, Finding.variable.in_(names))
+        select(Finding).where(Finding.drop_id == drop.id,
+                              Finding.variable.in_([variable.name, *(variable.aliases or [])]))
         .order_by(Finding.id).limit(PACKET_FINDINGS)
     )
     view["findings"] = [
