@@ -473,13 +473,9 @@ def _keep_current(path: Path, kept: Path) -> bool:
 
 
 def _restore_through_locks(backup_db: sqlite3.Connection, path: Path) -> None:
-    """Copy a backup over the live store inside one SQLite write transaction.
-
-    The backup file is in rollback-journal mode, the live store in WAL mode, and the backup API copies
-    page 1 with its journal-mode bytes. Staging the backup as a WAL-mode copy first means the pages that
-    land in the live store's write-ahead log agree with the file they belong to, so a kill at any moment
-    leaves the old store or the new one, never a mix.
-    """
+    """Copy a backup over the live store inside one SQLite write transaction (others keep their
+    connections and see the old store or the new one). The backup is staged as a WAL-mode copy first,
+    so that the pages landing in the live store's write-ahead log agree with the file they belong to."""
     staged = path.with_name(f".{path.name}.{os.getpid()}.restoring")
     try:
         _copy(backup_db, staged)
@@ -487,11 +483,30 @@ def _restore_through_locks(backup_db: sqlite3.Connection, path: Path) -> None:
             source.execute("PRAGMA journal_mode = WAL")
             with closing(sqlite3.connect(str(path), timeout=10)) as live:
                 live.execute("PRAGMA journal_mode = WAL")
-                # through SQLite's locks: other processes see the old store or the new one
                 source.backup(live)
     finally:
         for side in ("", "-wal", "-shm"):
             staged.with_name(staged.name + side).unlink(missing_ok=True)
+
+
+def _restore_by_rename_when_alone(backup_db: sqlite3.Connection, path: Path) -> bool:
+    """Put a backup in place of the store by renaming a complete new file over it, when no other
+    connection has the store open; False (nothing done) when one has.
+
+    Leaving WAL mode needs the store to itself, and folds the write-ahead log into the file, so the old
+    file is whole on its own before the rename: a kill at any moment leaves the old store or the new
+    one. (A kill in the middle of copying through the backup API could leave a malformed store; that
+    copy is kept only for a store that other processes hold open, which a rename would not reach.)
+    """
+    try:
+        with closing(sqlite3.connect(str(path), timeout=1)) as live:
+            mode = live.execute("PRAGMA journal_mode = DELETE").fetchone()[0]
+    except sqlite3.OperationalError:
+        return False
+    if str(mode).lower() != "delete":
+        return False
+    _swap_in(backup_db, path)
+    return True
 
 
 def _swap_in(backup_db: sqlite3.Connection, path: Path) -> None:
@@ -531,10 +546,10 @@ def restore(location: StoreLocation, source_file: Path, *, force: bool = False) 
         else:
             path.parent.mkdir(parents=True, exist_ok=True)
         with closing(sqlite3.connect(f"file:{source_file}?mode=ro", uri=True)) as backup_db:
-            if readable:
-                _restore_through_locks(backup_db, path)
-            else:
+            if not readable:
                 _swap_in(backup_db, path)
+            elif not _restore_by_rename_when_alone(backup_db, path):
+                _restore_through_locks(backup_db, path)
     except sqlite3.Error as exc:
         ours = translate(exc)
         if ours is None:
