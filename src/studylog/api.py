@@ -27,9 +27,6 @@ if TYPE_CHECKING:
     import pandas as pd
     from sqlalchemy.orm import Session
 
-Data = "str | os.PathLike[str] | pd.DataFrame"
-
-
 def _html_table(rows: list[dict[str, Any]], limit: int = 50) -> str:
     if not rows:
         return "<p><em>nothing</em></p>"

@@ -14,7 +14,6 @@ from sqlalchemy import (
     Float,
     ForeignKey,
     Integer,
-    LargeBinary,
     MetaData,
     String,
     Table,

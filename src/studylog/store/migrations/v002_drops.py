@@ -10,7 +10,6 @@ from sqlalchemy import (
     JSON,
     Boolean,
     Column,
-    Float,
     ForeignKey,
     Integer,
     LargeBinary,
