@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import re
+
 import datetime as dt
 
 import pandas as pd
@@ -280,6 +282,53 @@ def test_numbers_agree_with_python_float_when_finite(texts: list[str]) -> None:
         return value if math.isfinite(value) else None
 
     assert parsed.values.to_pylist() == [reference(t.strip()) for t in texts]
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.lists(st.one_of(
+    st.integers(-10**19, 10**19).map(str),
+    st.integers(0, 999).map(lambda i: f"{i}.000"),
+    st.text("0123456789.xX+- ", max_size=8),
+), min_size=1, max_size=20))
+def test_integers_agree_with_python_int(texts: list[str]) -> None:
+    def reference(text: str) -> float | None:
+        # the module's definition: sign, at most 18 digits, optionally a point and zeros only
+        text = text.strip()
+        match = re.fullmatch(r"([+-]?\d{1,18})(\.0*)?", text)
+        return float(int(match.group(1))) if match else None
+
+    parsed = typed.parse(pa.array(texts, pa.string()), VariableSpec("x", "integer"))
+    assert parsed.values.to_pylist() == [reference(t) for t in texts]
+
+
+@pytest.mark.parametrize("kind, good, bad", [
+    ("integer", ["12", "-3", "007", "0"], "0x10"),
+    ("number", ["1.5", "-.5", "1e-3", "2"], "nan"),
+    ("date", ["2024-02-29", "1999-12-31", "0001-01-01", "2023-06-01"], "2023-02-29"),
+])
+def test_a_clean_column_reads_as_the_same_column_with_a_bad_cell(kind: str, good: list[str], bad: str) -> None:
+    # a column whose every cell converts takes Arrow's whole-column cast; one bad cell sends the column
+    # through the cell-by-cell reading; the good cells must read the same either way
+    spec = VariableSpec("x", kind)
+    clean = typed.parse(pa.array(good, pa.string()), spec).values.to_pylist()
+    mixed = typed.parse(pa.array(good + [bad], pa.string()), spec)
+    assert mixed.values.to_pylist() == clean + [None]
+    assert mixed.invalid.to_pylist() == [False] * len(good) + [True]
+    assert None not in clean
+
+
+def test_the_date_fallback_reads_iso_dates_as_the_standard_library_does() -> None:
+    # the numpy reading used when a column does not convert whole, on valid and invalid dates alike
+    texts = ["2024-02-29", "2023-02-29", "1900-02-29", "2000-02-29", "0001-01-01", "0000-01-01",
+             "9999-12-31", "2024-13-01", "2024-1-01", "2024/01/01", "20240101xx", None, "", "abcd-ef-gh"]
+    expected = []
+    for text in texts:
+        try:
+            value = dt.date.fromisoformat(text) if text else None
+            expected.append(value if value is not None and value.isoformat() == text else None)
+        except ValueError:
+            expected.append(None)
+    assert typed._iso_dates(pa.array(texts, pa.string())).to_pylist() == expected
 
 
 def test_dates_in_a_declared_format_are_strict_too() -> None:
