@@ -135,7 +135,8 @@ def _update_summaries(summaries: dict[str, Any], context: Any) -> None:
         if column is None:
             summary.update(context.column(name))
         else:
-            summary.update(context.column(column), parsed=context.parsed(name))
+            summary.update(context.column(column), parsed=context.parsed(name),
+                           digests=lambda column=column: context.digest(column)[0])
 
 
 def _more_passengers(session: Session, owner: DataTable, checks: Any, spec: Any = None,

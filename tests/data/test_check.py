@@ -339,6 +339,58 @@ def test_dates_in_a_declared_format_are_strict_too() -> None:
     assert finding(result, "d", "range").rows == (5,)
 
 
+# Digests are stored with each drop (record digests, FORMAT 1 in studylog.data.digests) and compared
+# with later drops, so the function must never change silently: these values were produced by the
+# first implementation of the format and pin it.
+PINNED_DIGESTS = [
+    ("", 0xe220a8397b1dcdaf, 0xb55a8fa067537a73),
+    ("a", 0x6a3b261df74d59b, 0x38972dda84b1d1f2),
+    ("visit-0001", 0xe7d83b90db194a85, 0xa084a58103ee5eb7),
+    ("exactly8", 0x8a047e90d3471152, 0xa9e39763726b3ec5),
+    ("0123456789abcdef", 0xa437753f62be1f50, 0x2bf6d4903a1b3aa7),
+    ("é€😀", 0x37dfcd478e1e7950, 0x73696c62da50b262),
+    ("x" * 64, 0xf980994278a1aa88, 0x9bc55464cd4bd03d),
+    ("y" * 65, 0x7780d7c9a161e826, 0x78ce587f8baa842),
+    ("z" * 200, 0x112eedab29e20605, 0x13fb9b6c87a610d3),
+    (None, 0x2545f4914f6cdd1d, 0x5851f42d4c957f2d),
+]
+
+
+@pytest.mark.parametrize("layout", ["mixed", "alone", "same length", "many repeats", "large string"])
+def test_digests_keep_the_stored_format(layout: str) -> None:
+    from studylog.data.repeats import text_digests
+
+    for text, hi, lo in PINNED_DIGESTS:
+        if layout == "mixed":
+            cells = [t for t, _, _ in PINNED_DIGESTS]
+        elif layout == "alone":
+            cells = [text]
+        elif layout == "same length":
+            cells = [text] * 3  # every cell the same length: the byte-matrix path
+        elif layout == "many repeats":
+            # few distinct values in a long batch: digested once per distinct value
+            cells = ([text] + [t for t, _, _ in PINNED_DIGESTS]) * 1_000
+        else:
+            cells = [text, "other"]
+        array = pa.array(cells, pa.large_string() if layout == "large string" else pa.string())
+        got_hi, got_lo = text_digests(array)
+        at = cells.index(text)
+        assert (int(got_hi[at]), int(got_lo[at])) == (hi, lo), (layout, text)
+
+
+@settings(max_examples=100, deadline=None)
+@given(st.lists(st.one_of(st.none(), st.text(max_size=30)), min_size=1, max_size=40), st.integers(0, 5))
+def test_digests_per_distinct_value_equal_the_digests_per_cell(texts: list[str | None], start: int) -> None:
+    from studylog.data import repeats
+
+    array = pa.array(texts * (9_000 // len(texts) + 1), pa.string())  # long, and few distinct values
+    array = array.slice(min(start, len(array) - 1))
+    spread = repeats.text_digests(array)
+    direct = repeats._cell_digests(array)
+    assert spread[0].tolist() == direct[0].tolist()
+    assert spread[1].tolist() == direct[1].tolist()
+
+
 def test_digests_do_not_depend_on_the_batch_or_on_long_cells() -> None:
     from studylog.data.repeats import row_digests, text_digests
 

@@ -24,8 +24,8 @@ from typing import TYPE_CHECKING, Any
 if TYPE_CHECKING:
     import numpy as np
 
-# bytes of one window: long texts are digested 64 bytes at a time so that padding stays bounded
-WINDOW = 64
+# cells looked at to decide whether a batch is digested per distinct value
+SAMPLE = 2048
 MERGE_LIMIT = 1 << 22
 _SEED_HI = 0x9E3779B97F4A7C15
 _SEED_LO = 0xD6E8FEB86659FD93
@@ -35,6 +35,8 @@ _NULL_HI = 0x2545F4914F6CDD1D
 _NULL_LO = 0x5851F42D4C957F2D
 _ROW_MUL = 0x100000001B3
 ROW_SEPARATOR = "\x1f"
+# the low m bytes of a word, m = 0 .. 8
+_BYTE_MASKS_LIST = [(1 << (8 * m)) - 1 for m in range(9)]
 NULL_CELL = "\x1e"
 
 
@@ -49,7 +51,13 @@ def _finalise(h: np.ndarray) -> np.ndarray:
 
 
 def text_digests(strings: Any) -> tuple[np.ndarray, np.ndarray]:
-    """Two 64-bit digest lanes for each text of an Arrow string array (null has its own digest)."""
+    """Two 64-bit digest lanes for each text of an Arrow string array (null has its own digest).
+
+    A column of few distinct values (most categorical, coded and date columns) is digested once per
+    distinct value and the digests are spread to the rows; a column of mostly distinct values is
+    digested cell by cell. Which way a batch goes is decided from its first cells; the digests are the
+    same either way.
+    """
     import numpy as np
     import pyarrow as pa
     import pyarrow.compute as pc
@@ -57,74 +65,110 @@ def text_digests(strings: Any) -> tuple[np.ndarray, np.ndarray]:
     if isinstance(strings, pa.ChunkedArray):
         strings = strings.combine_chunks()
     n = len(strings)
-    binary = strings.cast(pa.large_binary()) if pa.types.is_large_string(strings.type) else \
-        strings.cast(pa.binary())
-    lengths = pc.fill_null(pc.binary_length(binary), 0).to_numpy(zero_copy_only=False).astype(np.int64)
-    hi = np.full(n, _SEED_HI, dtype=np.uint64)
-    lo = np.full(n, _SEED_LO, dtype=np.uint64)
-    longest = int(lengths.max()) if n else 0
-    with np.errstate(over="ignore"):
-        start = 0
-        while True:
-            if start == 0:
-                rows = None
-                part = binary if longest <= WINDOW else pc.binary_slice(binary, 0, WINDOW)
-                part_lengths = np.minimum(lengths, WINDOW)
-                hi, lo = _fold_window(part, part_lengths, hi, lo)
-            else:
-                rows = np.flatnonzero(lengths > start)
-                part = pc.binary_slice(binary.take(pa.array(rows)), start, start + WINDOW)
-                part_lengths = np.minimum(lengths[rows] - start, WINDOW)
-                hi[rows], lo[rows] = _fold_window(part, part_lengths, hi[rows], lo[rows])
-            start += WINDOW
-            if start >= longest:
-                break
-        hi = _finalise(hi ^ (lengths.astype(np.uint64) * np.uint64(_MUL_LO)))
-        lo = _finalise(lo ^ (lengths.astype(np.uint64) * np.uint64(_MUL_HI)))
-    if strings.null_count:
-        nulls = pc.is_null(strings).to_numpy(zero_copy_only=False)
-        hi[nulls] = _NULL_HI
-        lo[nulls] = _NULL_LO
-    return hi, lo
+    if n >= 4 * SAMPLE and pc.count_distinct(strings.slice(0, SAMPLE), mode="all").as_py() <= SAMPLE // 8:
+        encoded = strings.dictionary_encode()
+        if len(encoded.dictionary) == 0:
+            return _cell_digests(strings)
+        hi, lo = _cell_digests(encoded.dictionary)
+        index = encoded.indices
+        if index.null_count:
+            where = pc.fill_null(index, 0).to_numpy(zero_copy_only=False)
+            nulls = index.is_null().to_numpy(zero_copy_only=False)
+            hi, lo = hi[where], lo[where]
+            hi[nulls], lo[nulls] = _NULL_HI, _NULL_LO
+            return hi, lo
+        where = index.to_numpy(zero_copy_only=False)
+        return hi[where], lo[where]
+    return _cell_digests(strings)
 
 
-def _fold_window(
-    part: Any, lengths: np.ndarray, sub_hi: np.ndarray, sub_lo: np.ndarray
-) -> tuple[np.ndarray, np.ndarray]:
-    """Fold up to 64 bytes of each text into the lanes (padding words beyond a text are skipped)."""
+def _cell_digests(strings: Any) -> tuple[np.ndarray, np.ndarray]:
+    """``text_digests`` cell by cell, straight from the array's offsets and character data.
+
+    Word k of a text is its bytes 8k to 8k + 7 (zero past its end), read from an aligned copy of the
+    character data as two aligned words shifted together, so that no padded copy of each cell is made.
+    """
     import numpy as np
     import pyarrow as pa
     import pyarrow.compute as pc
 
-    width = int(-(-int(lengths.max()) // 8) * 8) if len(lengths) else 0
-    if width == 0:
-        return sub_hi, sub_lo
-    pad_lengths = pa.array(width - lengths, pa.int64())
-    zero = pa.scalar(b"\0", part.type)
-    padding = pc.binary_repeat(zero, pad_lengths)
-    padded = pc.binary_join_element_wise(pc.fill_null(part, b""), padding, pa.scalar(b"", part.type))
-    buffers = padded.buffers()
-    offset_type = np.int64 if pa.types.is_large_binary(padded.type) else np.int32
-    offsets = np.frombuffer(buffers[1], dtype=offset_type, count=len(padded) + 1, offset=padded.offset *
-                            np.dtype(offset_type).itemsize)
-    data = np.frombuffer(buffers[2], dtype=np.uint8)[offsets[0]: offsets[0] + len(padded) * width]
-    words = data.view("<u8").reshape(len(padded), width // 8)
-    mul_hi = np.uint64(_MUL_HI)
-    mul_lo = np.uint64(_MUL_LO)
-    shift = np.uint64(29)
-    for j in range(width // 8):
-        word = words[:, j]
-        inside = lengths > 8 * j
-        next_hi = (sub_hi ^ word) * mul_hi
-        next_lo = (sub_lo ^ word) * mul_lo
-        next_hi ^= next_hi >> shift
-        next_lo ^= next_lo >> shift
-        if inside.all():
-            sub_hi, sub_lo = next_hi, next_lo
-        else:
-            sub_hi = np.where(inside, next_hi, sub_hi)
-            sub_lo = np.where(inside, next_lo, sub_lo)
-    return sub_hi, sub_lo
+    n = len(strings)
+    hi = np.full(n, _SEED_HI, dtype=np.uint64)
+    lo = np.full(n, _SEED_LO, dtype=np.uint64)
+    if n == 0:
+        return hi, lo
+    large = pa.types.is_large_string(strings.type) or pa.types.is_large_binary(strings.type)
+    offset_type = np.dtype(np.int64 if large else np.int32)
+    buffers = strings.buffers()
+    offsets = np.frombuffer(buffers[1], dtype=offset_type, count=n + 1,
+                            offset=strings.offset * offset_type.itemsize).astype(np.int64)
+    first, last = int(offsets[0]), int(offsets[-1])
+    starts = offsets[:-1] - first
+    lengths = np.diff(offsets)
+    nulls = pc.is_null(strings).to_numpy(zero_copy_only=False) if strings.null_count else None
+    if nulls is not None:
+        lengths[nulls] = 0
+    data = np.frombuffer(buffers[2], dtype=np.uint8)[first:last] if last > first else np.zeros(0, np.uint8)
+    longest, shortest = int(lengths.max()), int(lengths.min())
+    width = -(-longest // 8)
+    mul_hi, mul_lo, shift = np.uint64(_MUL_HI), np.uint64(_MUL_LO), np.uint64(29)
+    masks = np.array(_BYTE_MASKS_LIST, dtype=np.uint64)
+    with np.errstate(over="ignore"):
+        if longest == shortest and nulls is None:
+            # every cell the same length: the cells are the rows of a byte matrix, padded to whole words
+            matrix = np.zeros((n, width * 8), dtype=np.uint8)
+            matrix[:, :longest] = data.reshape(n, longest)
+            words = matrix.view("<u8")
+            for k in range(width):
+                hi = (hi ^ words[:, k]) * mul_hi
+                lo = (lo ^ words[:, k]) * mul_lo
+                hi ^= hi >> shift
+                lo ^= lo >> shift
+        elif width:
+            # one word more than the data, so that the word after a cell's last one can be read
+            padded = np.zeros((last - first) // 8 + 2, dtype="<u8")
+            padded.view(np.uint8)[: last - first] = data
+            first_word = starts >> 3
+            low_bits = ((starts & 7) * 8).astype(np.uint64)
+            # the high part is shifted in two steps, so that an aligned cell (a shift of 64) gets 0
+            high_bits = np.uint64(63) - low_bits
+            one = np.uint64(1)
+            top = len(padded) - 2
+            for k in range(width):
+                remaining = lengths - 8 * k
+                count = n if 8 * k < shortest else int(np.count_nonzero(remaining > 0))
+                if count * 4 >= n:
+                    q = first_word + k if count == n else np.minimum(first_word + k, top)
+                    word = (padded[q] >> low_bits) | ((padded[q + 1] << one) << high_bits)
+                    word &= masks[np.clip(remaining, 0, 8)]
+                    next_hi = (hi ^ word) * mul_hi
+                    next_lo = (lo ^ word) * mul_lo
+                    next_hi ^= next_hi >> shift
+                    next_lo ^= next_lo >> shift
+                    if count == n:
+                        hi, lo = next_hi, next_lo
+                    else:
+                        inside = remaining > 0
+                        hi = np.where(inside, next_hi, hi)
+                        lo = np.where(inside, next_lo, lo)
+                else:
+                    # the few texts this long
+                    rows = np.flatnonzero(remaining > 0)
+                    q = first_word[rows] + k
+                    word = (padded[q] >> low_bits[rows]) | ((padded[q + 1] << one) << high_bits[rows])
+                    word &= masks[np.minimum(remaining[rows], 8)]
+                    sub_hi = (hi[rows] ^ word) * mul_hi
+                    sub_lo = (lo[rows] ^ word) * mul_lo
+                    sub_hi ^= sub_hi >> shift
+                    sub_lo ^= sub_lo >> shift
+                    hi[rows], lo[rows] = sub_hi, sub_lo
+        length_bits = lengths.astype(np.uint64)
+        hi = _finalise(hi ^ (length_bits * mul_lo))
+        lo = _finalise(lo ^ (length_bits * mul_hi))
+    if nulls is not None:
+        hi[nulls] = _NULL_HI
+        lo[nulls] = _NULL_LO
+    return hi, lo
 
 
 def combine(parts: Sequence[tuple[np.ndarray, np.ndarray]]) -> tuple[np.ndarray, np.ndarray]:

@@ -40,6 +40,7 @@ and ``levels_withheld`` is true. Profiles are unweighted.
 from __future__ import annotations
 
 import base64
+from collections.abc import Callable
 from typing import TYPE_CHECKING, Any
 
 from studylog.data.spec import NUMERIC_TYPES, VariableSpec
@@ -87,7 +88,11 @@ class DistinctEstimate:
     def add_hashes(self, hashes: np.ndarray) -> None:
         import numpy as np
 
-        merged = np.unique(np.concatenate([self.smallest, hashes.astype(np.uint64, copy=False)]))
+        hashes = hashes.astype(np.uint64, copy=False)
+        if len(self.smallest) == KMV_K:
+            # only hashes below the k-th smallest so far can change the estimate
+            hashes = hashes[hashes < self.smallest[-1]]
+        merged = np.unique(np.concatenate([self.smallest, hashes]))
         self.smallest = merged[:KMV_K]
 
     def add_values(self, values: pa.Array | np.ndarray) -> None:
@@ -147,15 +152,19 @@ class LevelCounts:
         self.other = 0  # counts of values not tracked once inexact
         self.distinct = DistinctEstimate()
 
-    def update(self, values: pa.Array) -> None:
-        """Count the (non-missing) values of one batch."""
+    def update(self, values: pa.Array, hashes: Callable[[], np.ndarray] | None = None) -> None:
+        """Count the (non-missing) values of one batch.
+
+        ``hashes()``: the values' ``hash_values``, when the caller already has them (the check's cell
+        digests); the distinct estimate is the same either way.
+        """
         import pyarrow.compute as pc
 
         if len(values) == 0:
             return
         if not self.exact:
             self._count_tracked(values)
-            self.distinct.add_values(pc.unique(values))
+            self.distinct.add_hashes(hashes() if hashes is not None else hash_values(pc.unique(values)))
             return
         counted = pc.value_counts(values)
         self._add_pending(counted.field("values"), counted.field("counts").to_numpy())
@@ -444,12 +453,15 @@ class ColumnSummary:
         self.date_max: str | None = None
         self.dates = LevelCounts() if self.type in DATE_TYPES else None
 
-    def update(self, strings: pa.Array, spec: VariableSpec | None = None, *, parsed: Any = None) -> None:
+    def update(self, strings: pa.Array, spec: VariableSpec | None = None, *, parsed: Any = None,
+               digests: Callable[[], np.ndarray] | None = None) -> None:
         """Add one batch of a column (strings, null or empty where the cell is empty).
 
         ``parsed``: the same cells already read as this summary's variable by the check
         (``typed.parse``, ``BatchContext.parsed``); its missing mask and typed values are reused instead
-        of reading the cells a second time. The profile is the same with or without it.
+        of reading the cells a second time. ``digests()``: the first lane of the check's digest of each
+        cell (``BatchContext.digest``), reused for distinct counts. The profile is the same with or
+        without them.
         """
         import numpy as np
         import pyarrow as pa
@@ -460,7 +472,7 @@ class ColumnSummary:
         if not pa.types.is_string(strings.type) and not pa.types.is_large_string(strings.type):
             strings = pc.cast(strings, pa.string())
         if parsed is not None and self.spec is not None and self.type == self.spec.type:
-            self._update_parsed(strings, parsed)
+            self._update_parsed(strings, parsed, digests)
             return
         self.rows += len(strings)
         trimmed = pc.utf8_trim_whitespace(strings)
@@ -490,7 +502,8 @@ class ColumnSummary:
         self.code_counts = (np.asarray(self.code_counts) +
                             np.bincount(found, minlength=len(self.codes))).tolist()
 
-    def _update_parsed(self, strings: pa.Array, parsed: Any) -> None:
+    def _update_parsed(self, strings: pa.Array, parsed: Any,
+                       digests: Callable[[], np.ndarray] | None = None) -> None:
         """``update`` from the check's reading of the cells (``typed.Parsed``): same counts, no re-parse."""
         import numpy as np
         import pyarrow as pa
@@ -521,7 +534,10 @@ class ColumnSummary:
             self.invalid += int(pc.sum(parsed.invalid).as_py() or 0)
             self._add_dates(parsed.values.drop_null())
         elif pa.types.is_string(parsed.values.type) or pa.types.is_large_string(parsed.values.type):
-            self.levels.update(parsed.values.drop_null())  # the raw text of the present cells
+            # the raw text of the present cells
+            present_digests = None if digests is None else (
+                lambda: digests()[~parsed.missing.to_numpy(zero_copy_only=False)])
+            self.levels.update(parsed.values.drop_null(), present_digests)
         else:
             self.levels.update(pc.filter(strings, pc.invert(parsed.missing)))
 

@@ -125,12 +125,26 @@ def _integers(present: Any) -> Any:
     longest = pc.max(pc.binary_length(present)).as_py()
     if longest is None or longest <= 18:
         values = _whole_cast(present, pa.int64())
-        if values is not None and not pc.any(pc.match_substring(present, "x", ignore_case=True)).as_py():
+        if values is not None and not _holds_letter_x(present):
             return pc.cast(values, pa.float64(), safe=False)
     ok = pc.match_substring_regex(present, INTEGER_PATTERN)
     # Arrow's cast refuses a leading '+', which the definition allows
     digits = pc.replace_substring_regex(pc.if_else(ok, present, None), r"^\+|\.0*$", "")
     return pc.cast(pc.cast(digits, pa.int64()), pa.float64(), safe=False)
+
+
+def _holds_letter_x(strings: Any) -> bool:
+    """Whether an 'x' or 'X' is anywhere in the array's character data (bytes beyond a slice count too,
+    which only sends a clean column the slower way)."""
+    import numpy as np
+    import pyarrow as pa
+
+    if isinstance(strings, pa.ChunkedArray):
+        return any(_holds_letter_x(chunk) for chunk in strings.chunks)
+    data = strings.buffers()[2]
+    if data is None:
+        return False
+    return bool(((np.frombuffer(data, dtype=np.uint8) | 0x20) == ord("x")).any())
 
 
 def _numbers(present: Any) -> Any:
