@@ -77,9 +77,11 @@ def check_file(
     progress: Callable[[int, int], None] | None = None,
 ) -> CheckOutcome:
     """Check a data file against the dictionary (now, or a named ``version``) and record the drop."""
-    from studylog.data.check import Checker
+    from studylog.data.check import Checker, prefer_jemalloc
     from studylog.data.read import file_facts, open_source
     from studylog.data.rules import plan
+
+    prefer_jemalloc()
 
     spec = dictionary.table_spec(session, table, version)
     owner = dictionary.resolve_table(session, spec.name)

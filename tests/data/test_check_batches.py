@@ -69,3 +69,20 @@ def test_digest_set_finds_exactly_the_repeats_python_would(values: list[str | No
         expected.append(marker in earlier)
         earlier.add(marker)
     assert found == expected
+
+
+@settings(max_examples=60, deadline=None)
+@given(values=st.lists(st.sampled_from(["a", "b", "c", None, ""]), min_size=1, max_size=300),
+       batch_rows=st.integers(1, 300))
+def test_digest_set_marks_the_first_of_many_repeats_in_one_batch(values: list[str | None],
+                                                                 batch_rows: int) -> None:
+    # many equal digests in one batch: the earliest row of each is the first occurrence, whatever
+    # order the sort leaves equal digests in
+    seen = SeenDigests()
+    found: list[bool] = []
+    for start in range(0, len(values), batch_rows):
+        found.extend(seen.observe(*text_digests(pa.array(values[start:start + batch_rows], pa.string()))).tolist())
+    first = {}
+    for i, value in enumerate(values):
+        first.setdefault(("null",) if value is None else value, i)
+    assert found == [first[("null",) if v is None else v] != i for i, v in enumerate(values)]
