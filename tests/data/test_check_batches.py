@@ -86,3 +86,50 @@ def test_digest_set_marks_the_first_of_many_repeats_in_one_batch(values: list[st
     for i, value in enumerate(values):
         first.setdefault(("null",) if value is None else value, i)
     assert found == [first[("null",) if v is None else v] != i for i, v in enumerate(values)]
+
+
+@settings(max_examples=60, deadline=None)
+@given(rows=st.lists(st.fixed_dictionaries(CELLS), min_size=1, max_size=120), batch_rows=st.integers(8, 60))
+def test_work_per_distinct_value_gives_the_findings_and_profiles_of_work_per_cell(
+        rows: list[dict[str, str | None]], batch_rows: int) -> None:
+    # a column with few distinct values is read, digested, matched against its levels and pattern once
+    # per distinct value (repeats.encode_if_few); made to happen on small batches here by a small sample
+    from unittest import mock
+
+    from studylog.data import repeats
+    from studylog.data.rules import plan
+    from studylog.data.summary import ColumnSummary
+
+    table = _table(rows)
+
+    def run() -> tuple[list[dict[str, object]], dict[str, object]]:
+        summaries = {v.name: ColumnSummary(v, v.type) for v in SPEC.variables}
+
+        def observe(context) -> None:  # type: ignore[no-untyped-def]
+            for name, summary in summaries.items():
+                summary.update(context.column(name), parsed=context.parsed(name),
+                               digests=lambda name=name: context.digest(name)[0])
+
+        from studylog.data.check import Checker
+
+        result = Checker(plan(SPEC, table.column_names), [observe]).run(
+            table.to_batches(max_chunksize=batch_rows))
+        profiles = {n: {k: v for k, v in s.to_dict().items() if k != "sketch"} for n, s in summaries.items()}
+        return [f.to_dict() for f in result.findings], profiles
+
+    calls = []
+    real = repeats.encode_if_few
+
+    def counted(strings):  # type: ignore[no-untyped-def]
+        found = real(strings)
+        calls.append(found is not None)
+        return found
+
+    # every column of 16 rows or more is encoded
+    with mock.patch.object(repeats, "SAMPLE", 4), mock.patch.object(repeats, "FEW", 4), \
+            mock.patch.object(repeats, "encode_if_few", counted):
+        encoded = run()
+    with mock.patch.object(repeats, "encode_if_few", lambda strings: None):
+        per_cell = run()
+    assert any(calls) == (min(batch_rows, len(rows)) >= 16)
+    assert encoded == per_cell

@@ -127,6 +127,7 @@ class BatchContext:
         self.length = batch.num_rows
         self._names = {name: i for i, name in enumerate(batch.schema.names)}
         self._parsed: dict[str, Any] = {}
+        self._encoded: dict[str, Any] = {}
         self._digests: dict[str, Any] = {}
         self._key_digest: Any = None
         self._row_digest: Any = None
@@ -151,6 +152,27 @@ class BatchContext:
             array = array.combine_chunks()
         return array
 
+    def encoded(self, column: str) -> Any:
+        """The file column dictionary-encoded when it has few distinct values, else None
+        (``repeats.encode_if_few``): what is computed per cell is then computed per distinct value."""
+        from studylog.data.repeats import encode_if_few
+
+        if column not in self._encoded:
+            with self._lock("encoded", column):
+                if column not in self._encoded:
+                    self._encoded[column] = encode_if_few(self.column(column))
+        return self._encoded[column]
+
+    def per_value(self, column: str, compute: Callable[[Any], Any], fill: Any = None) -> Any:
+        """``compute(strings)`` of an elementwise function of a column's cells, computed once per
+        distinct value where the column has few (a null cell then gets ``fill``)."""
+        from studylog.data.repeats import spread
+
+        encoded = self.encoded(column)
+        if encoded is None:
+            return compute(self.column(column))
+        return spread(encoded, compute(encoded.dictionary), fill)
+
     def parsed(self, variable: str) -> Any:
         """The column of a variable read as its type (``studylog.data.typed.Parsed``)."""
         from studylog.data import typed
@@ -160,7 +182,10 @@ class BatchContext:
                 if variable not in self._parsed:
                     bound = self.plan.binding(variable)
                     assert bound is not None, variable
-                    self._parsed[variable] = typed.parse(self.column(bound.column), bound.variable)
+                    encoded = self.encoded(bound.column)
+                    self._parsed[variable] = (
+                        typed.parse(self.column(bound.column), bound.variable) if encoded is None
+                        else typed.parse_encoded(encoded, bound.variable))
         return self._parsed[variable]
 
     def digest(self, column: str) -> Any:
@@ -169,7 +194,7 @@ class BatchContext:
         if column not in self._digests:
             with self._lock("digest", column):
                 if column not in self._digests:
-                    self._digests[column] = text_digests(self.column(column))
+                    self._digests[column] = text_digests(self.column(column), self.encoded(column))
         return self._digests[column]
 
     def key_digest(self) -> Any:

@@ -24,8 +24,10 @@ from typing import TYPE_CHECKING, Any
 if TYPE_CHECKING:
     import numpy as np
 
-# cells looked at to decide whether a batch is digested per distinct value
+# cells looked at to decide whether a column is worked on per distinct value, and how many of them
+# may be distinct for that
 SAMPLE = 2048
+FEW = SAMPLE // 2
 MERGE_LIMIT = 1 << 22
 _SEED_HI = 0x9E3779B97F4A7C15
 _SEED_LO = 0xD6E8FEB86659FD93
@@ -50,13 +52,41 @@ def _finalise(h: np.ndarray) -> np.ndarray:
     return h ^ (h >> np.uint64(31))
 
 
-def text_digests(strings: Any) -> tuple[np.ndarray, np.ndarray]:
+def encode_if_few(strings: Any) -> Any:
+    """The array dictionary-encoded when it holds few distinct values, else None.
+
+    Few: at most half of its first ``SAMPLE`` cells are distinct (categorical, coded, count and
+    date columns, mostly), so that work done once per distinct value and spread to the rows is far
+    cheaper than work done per cell. Short arrays are never encoded.
+    """
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    if isinstance(strings, pa.ChunkedArray):
+        strings = strings.combine_chunks()
+    if len(strings) < 4 * SAMPLE:
+        return None
+    if pc.count_distinct(strings.slice(0, SAMPLE), mode="all").as_py() > FEW:
+        return None
+    encoded = strings.dictionary_encode()
+    return encoded if len(encoded.dictionary) else None
+
+
+def spread(encoded: Any, per_value: Any, fill: Any = None) -> Any:
+    """Values computed for each distinct value of ``encoded`` (an Arrow array), given to its rows;
+    a null cell gets ``fill`` (null when None)."""
+    import pyarrow.compute as pc
+
+    taken = per_value.take(encoded.indices)
+    return taken if fill is None or not encoded.indices.null_count else pc.fill_null(taken, fill)
+
+
+def text_digests(strings: Any, encoded: Any = None) -> tuple[np.ndarray, np.ndarray]:
     """Two 64-bit digest lanes for each text of an Arrow string array (null has its own digest).
 
-    A column of few distinct values (most categorical, coded and date columns) is digested once per
-    distinct value and the digests are spread to the rows; a column of mostly distinct values is
-    digested cell by cell. Which way a batch goes is decided from its first cells; the digests are the
-    same either way.
+    A column of few distinct values (``encode_if_few``; ``encoded`` when the caller has it already) is
+    digested once per distinct value and the digests are spread to the rows; other columns are
+    digested cell by cell. The digests are the same either way.
     """
     import numpy as np
     import pyarrow as pa
@@ -64,22 +94,20 @@ def text_digests(strings: Any) -> tuple[np.ndarray, np.ndarray]:
 
     if isinstance(strings, pa.ChunkedArray):
         strings = strings.combine_chunks()
-    n = len(strings)
-    if n >= 4 * SAMPLE and pc.count_distinct(strings.slice(0, SAMPLE), mode="all").as_py() <= SAMPLE // 8:
-        encoded = strings.dictionary_encode()
-        if len(encoded.dictionary) == 0:
-            return _cell_digests(strings)
-        hi, lo = _cell_digests(encoded.dictionary)
-        index = encoded.indices
-        if index.null_count:
-            where = pc.fill_null(index, 0).to_numpy(zero_copy_only=False)
-            nulls = index.is_null().to_numpy(zero_copy_only=False)
-            hi, lo = hi[where], lo[where]
-            hi[nulls], lo[nulls] = _NULL_HI, _NULL_LO
-            return hi, lo
-        where = index.to_numpy(zero_copy_only=False)
-        return hi[where], lo[where]
-    return _cell_digests(strings)
+    if encoded is None:
+        encoded = encode_if_few(strings)
+    if encoded is None:
+        return _cell_digests(strings)
+    hi, lo = _cell_digests(encoded.dictionary)
+    index = encoded.indices
+    if index.null_count:
+        where = pc.fill_null(index, 0).to_numpy(zero_copy_only=False)
+        nulls = index.is_null().to_numpy(zero_copy_only=False)
+        hi, lo = hi[where], lo[where]
+        hi[nulls], lo[nulls] = _NULL_HI, _NULL_LO
+        return hi, lo
+    where = index.to_numpy(zero_copy_only=False)
+    return hi[where], lo[where]
 
 
 def _cell_digests(strings: Any) -> tuple[np.ndarray, np.ndarray]:

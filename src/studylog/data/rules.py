@@ -118,7 +118,8 @@ class LevelRule(_Stateless):
         import pyarrow.compute as pc
 
         parsed = context.parsed(self.variable)
-        known = pc.is_in(context.column(self.column), value_set=pa.array(self.codes, pa.string()))
+        codes = pa.array(self.codes, pa.string())
+        known = context.per_value(self.column, lambda cells: pc.is_in(cells, value_set=codes), False)
         wrong = pc.and_(pc.invert(parsed.missing), pc.invert(known))
         count = _count(wrong)
         return Tally(count, context.examples(wrong, [self.column]) if count else [])
@@ -266,7 +267,8 @@ class PatternRule(_Stateless):
         import pyarrow.compute as pc
 
         parsed = context.parsed(self.variable)
-        matches = pc.match_substring_regex(context.column(self.column), f"^(?:{self.pattern})$")
+        pattern = f"^(?:{self.pattern})$"
+        matches = context.per_value(self.column, lambda cells: pc.match_substring_regex(cells, pattern))
         wrong = pc.and_(pc.invert(parsed.missing), pc.invert(pc.fill_null(matches, True)))
         count = _count(wrong)
         return Tally(count, context.examples(wrong, [self.column]) if count else [])

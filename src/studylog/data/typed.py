@@ -100,6 +100,20 @@ def parse(strings: Any, spec: VariableSpec) -> Parsed:
     return Parsed(values, missing, empty, invalid)
 
 
+def parse_encoded(encoded: Any, spec: VariableSpec) -> Parsed:
+    """``parse`` of a dictionary-encoded column: each distinct value is read once, then spread to its
+    rows (a null cell is missing and blank, never invalid), which gives the same ``Parsed``."""
+    from studylog.data.repeats import spread
+
+    once = parse(encoded.dictionary, spec)
+    return Parsed(
+        values=spread(encoded, once.values),
+        missing=spread(encoded, once.missing, True),
+        empty=spread(encoded, once.empty, True),
+        invalid=spread(encoded, once.invalid, False),
+    )
+
+
 def _whole_cast(present: Any, target: Any) -> Any:
     """Arrow's own cast of the whole column, or None when any present cell does not convert.
 
