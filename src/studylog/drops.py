@@ -138,7 +138,8 @@ def _update_summaries(summaries: dict[str, Any], context: Any) -> None:
             summary.update(context.column(name))
         else:
             summary.update(context.column(column), parsed=context.parsed(name),
-                           digests=lambda column=column: context.digest(column)[0])
+                           digests=lambda column=column: context.digest(column)[0],
+                           encoded=context.encoded(column))
 
 
 def _more_passengers(session: Session, owner: DataTable, checks: Any, spec: Any = None,

@@ -21,6 +21,7 @@ SPEC = TableSpec(
         VariableSpec("c", "categorical", levels=(Code("a"), Code("b")), required=True),
         VariableSpec("d", "date", maximum="2024-06-30"),
         VariableSpec("u", "text", unique=True, pattern="[a-z]+", sensitivity="sensitive"),
+        VariableSpec("b", "boolean", missing_codes=(Code("-9"),)),
     ),
     rules=(RuleSpec("n-by-c", "c = 'a' -> n < 3"),),
 )
@@ -32,6 +33,7 @@ CELLS = {
     "c": st.sampled_from(["a", "b", "A", "b ", None]),
     "d": st.sampled_from(["2024-01-31", "2024-02-30", "2024-07-01", None]),
     "u": st.sampled_from(["abc", "xyz", "Q1", None, "abc" * 30]),
+    "b": st.sampled_from(["yes", "No", "maybe", "-9", None, ""]),
 }
 
 ROWS = st.lists(st.fixed_dictionaries(CELLS), min_size=1, max_size=40)
@@ -108,7 +110,8 @@ def test_work_per_distinct_value_gives_the_findings_and_profiles_of_work_per_cel
         def observe(context) -> None:  # type: ignore[no-untyped-def]
             for name, summary in summaries.items():
                 summary.update(context.column(name), parsed=context.parsed(name),
-                               digests=lambda name=name: context.digest(name)[0])
+                               digests=lambda name=name: context.digest(name)[0],
+                               encoded=context.encoded(name))
 
         from studylog.data.check import Checker
 

@@ -152,11 +152,14 @@ class LevelCounts:
         self.other = 0  # counts of values not tracked once inexact
         self.distinct = DistinctEstimate()
 
-    def update(self, values: pa.Array, hashes: Callable[[], np.ndarray] | None = None) -> None:
+    def update(self, values: pa.Array, hashes: Callable[[], np.ndarray] | None = None,
+               counted: Callable[[], tuple[pa.Array, np.ndarray]] | None = None) -> None:
         """Count the (non-missing) values of one batch.
 
         ``hashes()``: the values' ``hash_values``, when the caller already has them (the check's cell
-        digests); the distinct estimate is the same either way.
+        digests); the distinct estimate is the same either way. ``counted()``: the distinct values in
+        order of first appearance and their counts, as ``pc.value_counts`` gives them, when the caller
+        can count them more cheaply (from a dictionary encoding).
         """
         import pyarrow.compute as pc
 
@@ -166,8 +169,11 @@ class LevelCounts:
             self._count_tracked(values)
             self.distinct.add_hashes(hashes() if hashes is not None else hash_values(pc.unique(values)))
             return
-        counted = pc.value_counts(values)
-        self._add_pending(counted.field("values"), counted.field("counts").to_numpy())
+        if counted is not None:
+            self._add_pending(*counted())
+            return
+        found = pc.value_counts(values)
+        self._add_pending(found.field("values"), found.field("counts").to_numpy())
 
     def _add_pending(self, values: pa.Array, counts: np.ndarray) -> None:
         self.pending.append((values, counts))
@@ -384,6 +390,22 @@ class NumericSummary:
         return self.distinct.estimate(), False
 
 
+def _dictionary_counts(encoded: pa.DictionaryArray, missing: pa.Array) -> tuple[pa.Array, np.ndarray]:
+    """The present values of a dictionary-encoded column and their counts, in order of first appearance.
+
+    Whether a cell is missing depends on its text alone, so each distinct value is missing in all its
+    cells or in none; the dictionary's order is the order of first appearance.
+    """
+    import numpy as np
+    import pyarrow.compute as pc
+
+    present = ~missing.to_numpy(zero_copy_only=False)
+    index = pc.fill_null(encoded.indices, 0).to_numpy(zero_copy_only=False)
+    counts = np.bincount(index[present], minlength=len(encoded.dictionary))
+    seen = counts > 0
+    return encoded.dictionary.filter(seen), counts[seen].astype(np.int64)
+
+
 def _parse_numbers(text: pa.Array) -> pa.Array:
     """float64 of each text in decimal notation, null elsewhere and where not finite ('1e309')."""
     import pyarrow as pa
@@ -454,14 +476,15 @@ class ColumnSummary:
         self.dates = LevelCounts() if self.type in DATE_TYPES else None
 
     def update(self, strings: pa.Array, spec: VariableSpec | None = None, *, parsed: Any = None,
-               digests: Callable[[], np.ndarray] | None = None) -> None:
+               digests: Callable[[], np.ndarray] | None = None, encoded: Any = None) -> None:
         """Add one batch of a column (strings, null or empty where the cell is empty).
 
         ``parsed``: the same cells already read as this summary's variable by the check
         (``typed.parse``, ``BatchContext.parsed``); its missing mask and typed values are reused instead
         of reading the cells a second time. ``digests()``: the first lane of the check's digest of each
-        cell (``BatchContext.digest``), reused for distinct counts. The profile is the same with or
-        without them.
+        cell (``BatchContext.digest``), reused for distinct counts; ``encoded``: the cells
+        dictionary-encoded (``BatchContext.encoded``), from which levels are counted. The profile is
+        the same with or without them.
         """
         import numpy as np
         import pyarrow as pa
@@ -472,7 +495,7 @@ class ColumnSummary:
         if not pa.types.is_string(strings.type) and not pa.types.is_large_string(strings.type):
             strings = pc.cast(strings, pa.string())
         if parsed is not None and self.spec is not None and self.type == self.spec.type:
-            self._update_parsed(strings, parsed, digests)
+            self._update_parsed(strings, parsed, digests, encoded)
             return
         self.rows += len(strings)
         trimmed = pc.utf8_trim_whitespace(strings)
@@ -503,7 +526,7 @@ class ColumnSummary:
                             np.bincount(found, minlength=len(self.codes))).tolist()
 
     def _update_parsed(self, strings: pa.Array, parsed: Any,
-                       digests: Callable[[], np.ndarray] | None = None) -> None:
+                       digests: Callable[[], np.ndarray] | None = None, encoded: Any = None) -> None:
         """``update`` from the check's reading of the cells (``typed.Parsed``): same counts, no re-parse."""
         import numpy as np
         import pyarrow as pa
@@ -537,9 +560,11 @@ class ColumnSummary:
             # the raw text of the present cells
             present_digests = None if digests is None else (
                 lambda: digests()[~parsed.missing.to_numpy(zero_copy_only=False)])
-            self.levels.update(parsed.values.drop_null(), present_digests)
+            self.levels.update(parsed.values.drop_null(), present_digests,
+                               None if encoded is None else lambda: _dictionary_counts(encoded, parsed.missing))
         else:
-            self.levels.update(pc.filter(strings, pc.invert(parsed.missing)))
+            self.levels.update(pc.filter(strings, pc.invert(parsed.missing)), None,
+                               None if encoded is None else lambda: _dictionary_counts(encoded, parsed.missing))
 
     def _update_dates(self, present: pa.Array) -> None:
         import pyarrow as pa
