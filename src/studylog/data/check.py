@@ -226,15 +226,6 @@ class BatchContext:
                     self._row_digest = combine([self.digest(c) for c in sorted(self.plan.columns)])
         return self._row_digest
 
-    def prepare(self, *, reverse: bool = False) -> None:
-        """Read every bound variable as its type and digest every column, now rather than on demand."""
-        bindings = reversed(self.plan.bindings) if reverse else self.plan.bindings
-        for bound in bindings:
-            self.parsed(bound.variable.name)
-        columns = reversed(self.plan.columns) if reverse else self.plan.columns
-        for column in columns:
-            self.digest(column)
-
     def examples(self, mask: Any, columns: Sequence[str], *, limit: int = EXAMPLES) -> list[Example]:
         """The first ``limit`` rows where ``mask`` is true, with their key and values (masked as needed)."""
         import numpy as np
@@ -351,9 +342,6 @@ class Checker:
         return self.finish()
 
     def _observe(self, context: BatchContext) -> None:
-        # the rules read the columns first to last; reading them last to first here splits that work
-        # between the two threads (whichever asks first computes a value, the other reuses it)
-        context.prepare(reverse=True)
         for observer in self.observers:
             observer(context)
 
