@@ -43,6 +43,9 @@ SAMPLE_BYTES = 1 << 16
 FIRST_BLOCK = 1 << 20
 LARGEST_BLOCK = 1 << 30
 CHUNK = 1 << 20
+# Blocks of the multithreaded whole-file read: large enough that the table has few chunks, small enough
+# that the parser's memory per thread stays small beside the table.
+WHOLE_BLOCK = 1 << 20
 
 # Magic numbers of files that are often given a .csv name by mistake.
 _SIGNATURES = (
@@ -92,6 +95,11 @@ class Source:
 
 def _whole(source: Source) -> pa.Table:
     import pyarrow as pa
+
+    if source.format in ("csv", "tsv"):
+        table = _csv_whole(source)
+        if table is not None:
+            return table
 
     # positional names while concatenating: the file's own names may be anything (quotes, dots, ...)
     names = [f"c{i}" for i in range(len(source.columns))]
@@ -344,12 +352,12 @@ def _open_csv(
     return source
 
 
-def _csv_reader(source: Source, width: int, block: int, handle: _WatchedFile) -> Any:
+def _csv_options(source: Source, width: int, block: int, threads: bool) -> dict[str, Any]:
     import pyarrow as pa
     import pyarrow.csv as pacsv
 
     read_options = pacsv.ReadOptions(
-        use_threads=False,
+        use_threads=threads,
         block_size=block,
         autogenerate_column_names=True,  # the header is read as data row 0, exactly as parsed
         encoding=source.encoding,
@@ -368,10 +376,41 @@ def _csv_reader(source: Source, width: int, block: int, handle: _WatchedFile) ->
         null_values=[""],
         check_utf8=True,
     )
-    reader = pacsv.open_csv(
-        handle, read_options=read_options, parse_options=parse_options, convert_options=convert_options
+    return {"read_options": read_options, "parse_options": parse_options, "convert_options": convert_options}
+
+
+def _csv_reader(source: Source, width: int, block: int, handle: _WatchedFile) -> Any:
+    import pyarrow.csv as pacsv
+
+    return pacsv.open_csv(handle, **_csv_options(source, width, block, threads=False))
+
+
+def _csv_whole(source: Source) -> pa.Table | None:
+    """The whole CSV in one multithreaded read, or None when the read meets anything unusual.
+
+    A caller that needs every row at once (profile, draft) holds the whole table anyway, so the
+    parser's blocks are kept as they come instead of being joined into batches. Any error, a NUL byte
+    or an odd number of quotes sends the caller back to the streaming reader, which reads the file
+    again and reports exactly what a check would (with the line; the threaded parser does not number
+    its rows).
+    """
+    import pyarrow as pa
+    import pyarrow.csv as pacsv
+
+    width = len(source.columns)
+    handle = _WatchedFile(
+        source.path, source.size, source.progress, watch_nul=not source.encoding.startswith(("utf-16", "utf-32"))
     )
-    return reader
+    with handle:
+        try:
+            table = pacsv.read_csv(handle, **_csv_options(source, width, WHOLE_BLOCK, threads=True))
+        except StudylogError:
+            raise
+        except (pa.ArrowException, UnicodeError, OSError, ValueError, LookupError):
+            return None
+    if handle.nul_at is not None or handle.quotes % 2 or table.num_columns != width:
+        return None
+    return table.slice(1).rename_columns(source.columns)
 
 
 def _probe_csv(source: Source, width: int) -> tuple[list[Any], bool]:
