@@ -4,10 +4,15 @@ Portable by construction: no SQLite-only SQL, JSON through SQLAlchemy's JSON typ
 UTC text (sortable, stable in dumps, identical on SQLite and PostgreSQL). Nothing here is deleted by the
 program: entries change status, and every change is a row in ``changes``.
 
-The schema these models describe must equal the one the migrations build; a test compares them.
+The schema these models describe must equal the one the migrations build; a test compares them, and
+``tests/store/test_models_ddl.py`` pins the DDL.
+
+Every command imports this module, so its declaration cost is paid on each start. The annotations are
+therefore evaluated by Python as the classes are made (no ``from __future__ import annotations``): with
+string annotations SQLAlchemy would ``eval`` each of the ~180 again, which cost a fifth of this module's
+import time. Forward references (the two relationships) are quoted.
 """
 
-from __future__ import annotations
 
 from typing import Any
 
@@ -65,7 +70,7 @@ class DataTable(Base):
     updated_at: Mapped[str] = mapped_column(String(40))
     author: Mapped[str] = mapped_column(String(255))
 
-    variables: Mapped[list[Variable]] = relationship(
+    variables: Mapped[list["Variable"]] = relationship(
         back_populates="table", order_by="Variable.position"
     )
 
@@ -120,7 +125,7 @@ class Variable(Base):
     updated_at: Mapped[str] = mapped_column(String(40))
     author: Mapped[str] = mapped_column(String(255))
 
-    table: Mapped[DataTable] = relationship(back_populates="variables")
+    table: Mapped["DataTable"] = relationship(back_populates="variables")
 
 
 class Change(Base):
