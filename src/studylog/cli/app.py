@@ -112,8 +112,9 @@ COMMAND_MODULES: dict[str, tuple[str, ...]] = {
 }
 
 
-def build_app(modules: list[str] | None = None) -> typer.Typer:
-    """The root app with the commands of ``modules`` (all of them by default)."""
+def build_app(modules: list[str] | None = None, only: str | None = None) -> typer.Typer:
+    """The root app with the commands of ``modules`` (all of them by default), or of those only the
+    top-level command or group named ``only``."""
     import importlib
 
     root = typer.Typer(
@@ -128,11 +129,18 @@ def build_app(modules: list[str] | None = None) -> typer.Typer:
     root.callback()(main)
     for name in COMMAND_MODULES if modules is None else modules:
         importlib.import_module(name).register(root)
+    if only is not None:
+        # typer turns every registered function into a click command (signature, annotations, one
+        # parameter object per option) when the app is called; a run needs only its own command
+        commands = [c for c in root.registered_commands if (c.name or c.callback.__name__) == only]
+        groups = [g for g in root.registered_groups if g.name == only]
+        if commands or groups:
+            root.registered_commands, root.registered_groups = commands, groups
     return root
 
 
-def _module_of(argv: list[str]) -> str | None:
-    """The module registering the command in ``argv``, or None (help, version, unknown: load all)."""
+def _command_of(argv: list[str]) -> str | None:
+    """The top-level command named in ``argv`` when it is one of ours, else None (help, version, unknown)."""
     words = iter(argv)
     for word in words:
         if word == "--store":
@@ -140,11 +148,14 @@ def _module_of(argv: list[str]) -> str | None:
         elif word.startswith("-"):
             continue
         else:
-            for module, names in COMMAND_MODULES.items():
-                if word in names:
-                    return module
-            return None
+            return word if any(word in names for names in COMMAND_MODULES.values()) else None
     return None
+
+
+def _module_of(argv: list[str]) -> str | None:
+    """The module registering the command in ``argv``, or None (help, version, unknown: load all)."""
+    word = _command_of(argv)
+    return next((module for module, names in COMMAND_MODULES.items() if word in names), None)
 
 
 def __getattr__(name: str) -> typer.Typer:
@@ -158,5 +169,9 @@ def __getattr__(name: str) -> typer.Typer:
 
 def run() -> None:
     """Console-script entry point: builds only the command being run, for a fast start."""
+    name = _command_of(sys.argv[1:])
     module = _module_of(sys.argv[1:])
-    build_app([module] if module else None)()
+    if name is None or module is None:
+        build_app()()
+    else:
+        build_app([module], only=name)()
