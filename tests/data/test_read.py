@@ -308,3 +308,51 @@ def test_excel_and_parquet_progress_reach_the_file_size(tmp_path: Path) -> None:
         assert sum(b.num_rows for b in batches) == 300
         assert seen[-1] == (path.stat().st_size, path.stat().st_size)
         assert [d for d, _ in seen] == sorted(d for d, _ in seen)
+
+
+def _streamed(path: Path) -> pa.Table:
+    source = open_source(path)
+    return pa.Table.from_batches(list(source.batches())).rename_columns(source.columns)
+
+
+@pytest.mark.parametrize(
+    "data",
+    [
+        b"a,b\n1,2\n3,4\n",
+        b'a,b\n"x\ny",2\n\n3,"say ""hi"""\n',  # a newline in a value, an empty line, doubled quotes
+        b"\xef\xbb\xbfa;b\r\n1;\r\n;4",  # BOM, CRLF, empty cells, no final newline
+    ],
+)
+def test_whole_file_read_equals_the_streamed_batches(tmp_path: Path, data: bytes) -> None:
+    path = write(tmp_path, "x.csv", data)
+    assert read._csv_whole(open_source(path)) is not None
+    assert read_table(path).equals(_streamed(path))
+
+
+def test_whole_file_read_of_many_blocks_keeps_row_order(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setattr(read, "WHOLE_BLOCK", 1 << 10)
+    rows = "".join(f"{i},v{i % 7}\n" for i in range(5000))
+    path = write(tmp_path, "x.csv", ("n,v\n" + rows).encode())
+    table = read_table(path)
+    assert table.column("n").num_chunks > 1
+    assert table.column("n").to_pylist() == [str(i) for i in range(5000)]
+    assert table.equals(_streamed(path))
+
+
+@pytest.mark.parametrize(
+    ("data", "error", "line"),
+    [
+        (b"a,b\n1,2\n3,4,5\n", "ragged rows", 3),
+        (b'a,b\n1,"open\n2,3\n', "unterminated quote", 2),
+        (b"a,b\n1,2\n3,\x004\n", "NUL byte", 3),
+        (b"a,b\n1,2\n\xff,3\n", "not valid utf-8", 3),
+    ],
+)
+def test_whole_file_read_reports_errors_as_the_streaming_reader(
+    tmp_path: Path, data: bytes, error: str, line: int
+) -> None:
+    path = write(tmp_path, "x.csv", data)
+    with pytest.raises(InputFileError) as caught:
+        read_table(path)
+    assert error in caught.value.message
+    assert caught.value.line == line

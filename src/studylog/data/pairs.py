@@ -47,8 +47,9 @@ class RankBase:
 
     valid: np.ndarray  # bool
     sorted_values: np.ndarray
-    group_row: np.ndarray  # tie-group number of each row (0 where missing; never read there)
+    group_row: np.ndarray  # tie-group number of each row, as intp (0 where missing; never read there)
     groups: int
+    group_counts: np.ndarray  # rows in each tie group
     centre: float = 0.0
     centred: np.ndarray = field(default_factory=lambda: np.zeros(0))  # x - centre, 0 where missing
     missing_rows: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
@@ -81,19 +82,20 @@ class RankBase:
             counts = np.bincount(offsets)
             seen = np.flatnonzero(counts)
             sorted_values = np.repeat(low + seen.astype(np.float64), counts[seen])
-            group_row = np.zeros(values.size, dtype=np.int32)
+            group_row = np.zeros(values.size, dtype=np.intp)
             group_row[rows] = offsets
-            return cls(valid, sorted_values, group_row, int(counts.size), centred=values).finish()
+            return cls(valid, sorted_values, group_row, int(counts.size), counts, centred=values).finish()
         order = np.argsort(present)  # tie order is irrelevant: ties share a group
         sorted_values = present[order]
         starts = np.empty(sorted_values.size, dtype=bool)
         starts[:1] = True
         starts[1:] = sorted_values[1:] != sorted_values[:-1]
-        group_sorted = np.cumsum(starts) - 1
-        group_row = np.zeros(values.size, dtype=np.int32)
+        group_sorted = np.cumsum(starts, dtype=np.intp) - 1
+        group_row = np.zeros(values.size, dtype=np.intp)
         group_row[rows[order]] = group_sorted
         groups = int(group_sorted[-1]) + 1 if group_sorted.size else 0
-        return cls(valid, sorted_values, group_row, groups, centred=values).finish()
+        counts = np.diff(np.append(np.flatnonzero(starts), sorted_values.size))
+        return cls(valid, sorted_values, group_row, groups, counts, centred=values).finish()
 
     def ranks(self, rows: np.ndarray) -> tuple[np.ndarray, float]:
         """Average ranks (1..len(rows)) of the values at ``rows`` among those rows only, and
@@ -105,14 +107,38 @@ class RankBase:
     def _ranks(self, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         group = self.group_row[rows]
         counts = np.bincount(group, minlength=self.groups)
-        # a tie group's average rank: its last position less half of the others in it
-        average = np.cumsum(counts) - (counts - 1) / 2.0
+        average = _average_ranks(counts)
         return average[group], counts, average
+
+    def pair_ranks(self, other: RankBase, both: np.ndarray) -> tuple[np.ndarray, float]:
+        """``rank_sums`` on the rows where both columns are present (``both``, a mask).
+
+        The pair's tie groups are this column's less the rows where only the other is missing (few,
+        usually): no pair counts all its rows again."""
+        counts = self.group_counts
+        dropped = other.missing_rows[self.valid[other.missing_rows]]
+        if dropped.size:
+            counts = counts - np.bincount(self.group_row[dropped], minlength=self.groups)
+        average = _average_ranks(counts)
+        ranks = np.take(average, self.group_row[both])
+        return ranks, float((counts * (average * average)).sum())
 
     def rank_sums(self, rows: np.ndarray) -> tuple[np.ndarray, float]:
         """Ranks on ``rows`` and the sum of their squares (from the groups, not the rows)."""
         ranks, counts, average = self._ranks(rows)
         return ranks, float((counts * (average * average)).sum())
+
+
+def _average_ranks(counts: np.ndarray) -> np.ndarray:
+    """Each tie group's average rank: its last position less half of the others in it, that is
+    (2 cumsum - count + 1) / 2, in integers until the one exact halving."""
+    twice = np.cumsum(counts)
+    twice *= 2
+    twice -= counts
+    twice += 1
+    average = twice.astype(np.float64)
+    average *= 0.5
+    return average
 
 
 def pearson(x: np.ndarray, y: np.ndarray) -> float | None:
@@ -178,6 +204,19 @@ def spearman(x: RankBase, y: RankBase, rows: np.ndarray) -> float | None:
     return max(-1.0, min(1.0, (_dot(rx, ry) - mean_square) / math.sqrt(var_x * var_y)))
 
 
+def spearman_pair(x: RankBase, y: RankBase) -> float | None:
+    """``spearman`` on the rows where both are present, from ``RankBase.pair_ranks``."""
+    both = x.valid & y.valid
+    rx, sxx = x.pair_ranks(y, both)
+    ry, syy = y.pair_ranks(x, both)
+    n = rx.size
+    mean_square = n * ((n + 1) / 2.0) ** 2
+    var_x, var_y = sxx - mean_square, syy - mean_square
+    if var_x <= 1e-9 * sxx or var_y <= 1e-9 * syy:
+        return None
+    return max(-1.0, min(1.0, (_dot(rx, ry) - mean_square) / math.sqrt(var_x * var_y)))
+
+
 def compact_groups(codes: np.ndarray, levels: int) -> tuple[np.ndarray, int]:
     """Level indices renumbered 0..k-1 over the levels that occur (no sort of the rows)."""
     seen = np.flatnonzero(np.bincount(codes, minlength=levels))
@@ -209,7 +248,7 @@ def correlations(columns: Sequence[NumericColumn], strong: float = DEFAULT_STRON
                                  "strong": False}
         if n >= MIN_PAIR_CASES:
             entry["pearson"] = r
-            entry["spearman"] = spearman(a.base, b.base, np.flatnonzero(a.base.valid & b.base.valid))
+            entry["spearman"] = spearman_pair(a.base, b.base)
         return entry
 
     pairs.extend(mapper(measure, jobs))

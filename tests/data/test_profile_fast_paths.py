@@ -1,0 +1,60 @@
+"""The profile's shortcuts give exactly what the plain definitions give (not merely close to it)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from studylog.data import pairs, univariate
+
+RNG_SEED = 20260302
+
+
+@pytest.mark.parametrize("kind", ["normal", "ties", "rounded", "extremes"])
+def test_modified_z_on_sorted_values_equals_the_plain_definition(kind: str) -> None:
+    rng = np.random.default_rng(RNG_SEED)
+    for n in range(1, 80):
+        values = {
+            "normal": lambda: rng.normal(size=n),
+            "ties": lambda: rng.integers(0, 4, n).astype(float),
+            "rounded": lambda: np.round(rng.lognormal(1, 1, n), 1),
+            "extremes": lambda: rng.choice([1e-17, 0.1, 0.3, 5.0, 1e17], n),
+        }[kind]()
+        ordered = np.sort(values)
+        for median in (float(np.median(ordered)), float(ordered[n // 2]), float(rng.uniform(-1, 6))):
+            assert univariate.modified_z_sorted(ordered, median) == univariate.modified_z(values, median)
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.lists(st.one_of(st.none(), st.text(alphabet="ab\x00é ", max_size=10)), max_size=40),
+       st.integers(min_value=0, max_value=40))
+def test_distinct_texts_counts_as_arrow_does(values: list[str | None], cut: int) -> None:
+    array = pa.array(values, pa.string())
+    chunked = pa.chunked_array([array.slice(0, cut), array.slice(cut)], pa.string())
+    expected = pc.count_distinct(chunked).as_py()
+    assert univariate.distinct_texts(chunked) == expected
+    assert univariate.distinct_texts(array) == expected
+
+
+def _with_missing(values: np.ndarray, rng: np.random.Generator, share: float) -> np.ndarray:
+    values = values.astype(float)
+    values[rng.random(values.size) < share] = np.nan
+    return values
+
+
+@pytest.mark.parametrize("integer", [False, True])
+def test_spearman_from_each_columns_groups_equals_ranking_the_pairs_rows(integer: bool) -> None:
+    rng = np.random.default_rng(RNG_SEED)
+    n = 5000
+    x = _with_missing(rng.integers(0, 40, n), rng, 0.1)
+    y = _with_missing(np.round(np.nan_to_num(x) + rng.normal(0, 9, n)), rng, 0.05)
+    z = _with_missing(rng.normal(size=n), rng, 0.0)
+    bases = [pairs.RankBase.of(v, integer=integer) for v in (x, y)] + [pairs.RankBase.of(z)]
+    for i, a in enumerate(bases):
+        for b in bases[i + 1:]:
+            rows = np.flatnonzero(a.valid & b.valid)
+            assert pairs.spearman_pair(a, b) == pairs.spearman(a, b, rows)
