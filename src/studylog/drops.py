@@ -80,8 +80,10 @@ def check_file(
     from studylog.data.check import Checker, prefer_jemalloc
     from studylog.data.read import file_facts, open_source
     from studylog.data.rules import plan
+    from studylog.profiling import arrow_without_pandas
 
     prefer_jemalloc()
+    arrow_without_pandas()
 
     spec = dictionary.table_spec(session, table, version)
     owner = dictionary.resolve_table(session, spec.name)

@@ -178,7 +178,7 @@ class Records:
             if number < len(self.key_texts):
                 yield ("keys", 3 * number + 2, self.key_texts[number])
             if self.cells is not None:
-                yield ("columns", 3 * number + 3, self.cells[start:stop].astype("<u2").tobytes())
+                yield ("columns", 3 * number + 3, np.ascontiguousarray(self.cells[start:stop], dtype="<u2").tobytes())
 
     @classmethod
     def from_chunks(cls, chunks: list[tuple[str, int, bytes]]) -> Records:
