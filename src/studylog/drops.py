@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import os
 from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -89,7 +90,10 @@ def check_file(
     owner = dictionary.resolve_table(session, spec.name)
     earlier_named = _named_drop(session, owner, against) if against is not None else None
     source = open_source(path, encoding=encoding, sheet=sheet, batch_rows=batch_rows, progress=progress)
-    sha256, size = file_facts(path)
+    # the file's SHA-256 is read in a thread of its own during the pass (hashlib lets go of the GIL)
+    hashing = ThreadPoolExecutor(max_workers=1, thread_name_prefix="studylog-sha256")
+    facts = hashing.submit(file_facts, path)
+    hashing.shutdown(wait=False)
     checks = plan(spec, source.columns)
     summaries = _summaries(checks)
     passengers = [Passenger(lambda context: _update_summaries(summaries, context))]
@@ -97,6 +101,7 @@ def check_file(
     result = Checker(checks, [p.observe for p in passengers]).run(source.batches())
     result.findings.extend(found for p in passengers for found in p.findings())
     profiles = {name: summary.to_dict() for name, summary in summaries.items()}
+    sha256, size = facts.result()
 
     previous = _same_file(session, owner, sha256)
     should_record = record and (previous is None or (label is not None and label != previous.label))
