@@ -8,7 +8,7 @@ Profiling needs no study at all.
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
@@ -88,6 +88,9 @@ def study_dictionary(location: StoreLocation | None, columns: Sequence[str], pat
     """The dictionary of the file's table, or an empty one when there is no study or no such table."""
     if location is None:
         return Dictionary()
+    if table is None and location.is_sqlite and location.path is not None and not location.path.exists():
+        # no study there: said without loading the store's models (a tenth of a second)
+        return Dictionary()
     from studylog import dictionary, study
     from studylog.store.session import transaction
 
@@ -120,10 +123,12 @@ def _specs_for(columns: Sequence[str], spec: TableSpec | None) -> dict[str, Vari
     return found
 
 
-def inferred_specs(data: Any, names: Sequence[str]) -> dict[str, tuple[VariableSpec, list[str]]]:
+def inferred_specs(data: Any, names: Sequence[str],
+                   mapper: Callable[..., Iterable[Any]] = map) -> dict[str, tuple[VariableSpec, list[str]]]:
     """For columns the dictionary does not know: the variable inference proposes (from at most
     INFERENCE_ROWS rows spread over the file), and its likely missing codes (kept apart: they are
-    counted as missing and suggested for review, not declared)."""
+    counted as missing and suggested for review, not declared). ``mapper`` (e.g. a thread pool's
+    map) infers the columns."""
     from studylog.data.infer import infer_column
     from studylog.data.spec import Code
 
@@ -139,8 +144,8 @@ def inferred_specs(data: Any, names: Sequence[str]) -> dict[str, tuple[VariableS
         length = INFERENCE_ROWS // SAMPLE_STRETCHES
         starts = np.linspace(0, sample.num_rows - length, SAMPLE_STRETCHES).astype(np.int64)
         sample = pa.concat_tables([sample.slice(int(start), length) for start in starts])
-    for name in names:
-        proposal = infer_column(name, sample.column(name), sample.num_rows)
+    proposals = mapper(lambda name: infer_column(name, sample.column(name), sample.num_rows), names)
+    for name, proposal in zip(names, proposals):
         levels = tuple(Code(str(level["code"]), level.get("label"), level.get("order"))
                        for level in proposal.levels)
         variable = VariableSpec(
@@ -170,12 +175,43 @@ def profile_file(
     arrow_without_pandas()
     path = Path(path)
     data = read_table(path, encoding=encoding, sheet=sheet)
+    pool = profile.workers()
+    try:
+        return _profile_read(data, path, pool, target=target, by=by, strong=strong, table=table,
+                             location=location)
+    finally:
+        pool.shutdown()
+
+
+def _import_in_background(name: str) -> None:
+    """Start importing a module that a later step needs, on another thread, while this one works
+    (an import that the later step starts meanwhile waits for this one)."""
+    import importlib
+    import sys
+    import threading
+
+    def load() -> None:
+        try:
+            importlib.import_module(name)
+        except Exception:  # noqa: BLE001 - the later step's own import reports it
+            pass
+
+    if name not in sys.modules:
+        threading.Thread(target=load, daemon=True).start()
+
+
+def _profile_read(data: Any, path: Path, pool: Any, *, target: str | None, by: str | None, strong: float,
+                  table: str | None, location: StoreLocation | None) -> dict[str, Any]:
+    from studylog.data import profile
+
+    # the p-values' distributions: a fifth of a second to import, done while the types are inferred
+    _import_in_background("scipy.special")
     columns = list(data.column_names)
     known = study_dictionary(location, columns, path, table)
     specs = _specs_for(columns, known.spec)
     availability = {column: known.availability[spec.name] for column, spec in specs.items()
                     if spec.name in known.availability}
-    proposed = inferred_specs(data, [c for c in columns if c not in specs])
+    proposed = inferred_specs(data, [c for c in columns if c not in specs], pool.map)
     inferred_missing = {name: codes for name, (_spec, codes) in proposed.items()}
     for name, (variable_spec, _codes) in proposed.items():
         specs[name] = variable_spec
@@ -189,7 +225,7 @@ def profile_file(
     weights = [name for name, spec in specs.items() if spec.role == "weight"]
     document = profile.profile_table(
         data, specs, target=target, by=by, strong=strong, inferred_missing=inferred_missing,
-        weight=weights[0] if weights else None, availability=availability,
+        weight=weights[0] if weights else None, availability=availability, pool=pool,
     )
     document["file"] = str(path)
     document["source"] = {

@@ -58,3 +58,24 @@ def test_spearman_from_each_columns_groups_equals_ranking_the_pairs_rows(integer
         for b in bases[i + 1:]:
             rows = np.flatnonzero(a.valid & b.valid)
             assert pairs.spearman_pair(a, b) == pairs.spearman(a, b, rows)
+
+
+@pytest.mark.parametrize("values", [
+    np.round(np.random.default_rng(RNG_SEED).normal(50, 12, 3000), 3),  # counted: three decimals
+    np.round(np.random.default_rng(RNG_SEED).random(3000), 4),
+    np.round(np.random.default_rng(RNG_SEED).normal(0, 1, 3000), 1),  # holds -0.0: sorted
+    np.random.default_rng(RNG_SEED).lognormal(0, 1, 3000),  # full precision: sorted
+    np.array([1e300, 0.5, 2.0]),
+])
+def test_counting_decimals_builds_the_same_rank_base_as_sorting(values: np.ndarray,
+                                                                monkeypatch: pytest.MonkeyPatch) -> None:
+    values = values.copy()
+    values[::17] = np.nan
+    counted = pairs.RankBase.of(values)
+    monkeypatch.setattr(pairs, "_decimal_scale", lambda present: None)
+    ordered = pairs.RankBase.of(values)
+    for name in ("valid", "sorted_values", "group_row", "group_counts", "centred", "missing_rows"):
+        assert np.array_equal(getattr(counted, name), getattr(ordered, name)), name
+    assert np.array_equal(np.signbit(counted.sorted_values), np.signbit(ordered.sorted_values))
+    assert (counted.groups, counted.total, counted.total_squares) == (ordered.groups, ordered.total,
+                                                                      ordered.total_squares)

@@ -85,6 +85,11 @@ class RankBase:
             group_row = np.zeros(values.size, dtype=np.intp)
             group_row[rows] = offsets
             return cls(valid, sorted_values, group_row, int(counts.size), counts, centred=values).finish()
+        scale = None if integer else _decimal_scale(present)
+        if scale is not None:
+            counted = _counted_decimals(cls, values, valid, rows, present, scale)
+            if counted is not None:
+                return counted
         order = np.argsort(present)  # tie order is irrelevant: ties share a group
         sorted_values = present[order]
         starts = np.empty(sorted_values.size, dtype=bool)
@@ -127,6 +132,49 @@ class RankBase:
         """Ranks on ``rows`` and the sum of their squares (from the groups, not the rows)."""
         ranks, counts, average = self._ranks(rows)
         return ranks, float((counts * (average * average)).sum())
+
+
+DECIMAL_PLACES = 6  # numbers with at most this many decimals can be counted instead of sorted
+SCALE_SAMPLE = 1000
+
+
+def _decimal_scale(present: np.ndarray) -> float | None:
+    """10^d for the fewest decimals d (at most DECIMAL_PLACES) that a sample of the values shows,
+    or None when the sample has more (then the values are sorted)."""
+    if not present.size:
+        return None
+    sample = present[:: max(1, present.size // SCALE_SAMPLE)]
+    for places in range(DECIMAL_PLACES + 1):
+        scale = float(10**places)
+        if np.array_equal(np.round(sample * scale) / scale, sample):
+            return scale
+    return None
+
+
+def _counted_decimals(cls: type[RankBase], values: np.ndarray, valid: np.ndarray, rows: np.ndarray,
+                      present: np.ndarray, scale: float) -> RankBase | None:
+    """The same RankBase as sorting gives, by counting: every value is k / scale for a whole k, the
+    ks span few values, and k / scale gives back each value exactly; None when that does not hold
+    (or a value is -0, which counting would turn into 0)."""
+    whole = np.round(present * scale)
+    low, high = float(whole.min()), float(whole.max())
+    if high - low >= min(INTEGER_COUNTING_SPAN, 2 * present.size + 1024) or max(-low, high) >= 2.0**40:
+        return None
+    if not np.array_equal(whole / scale, present):
+        return None
+    if low <= 0 <= high and np.signbit(present[present == 0]).any():
+        return None
+    offsets = (whole - low).astype(np.intp)
+    span_counts = np.bincount(offsets)
+    seen = span_counts > 0
+    counts = span_counts[seen]
+    # tie groups numbered in value order over the values that occur, as sorting numbers them
+    dense = np.cumsum(seen, dtype=np.intp)
+    dense -= 1
+    sorted_values = np.repeat((low + np.flatnonzero(seen).astype(np.float64)) / scale, counts)
+    group_row = np.zeros(values.size, dtype=np.intp)
+    group_row[rows] = dense[offsets]
+    return cls(valid, sorted_values, group_row, int(counts.size), counts, centred=values).finish()
 
 
 def _average_ranks(counts: np.ndarray) -> np.ndarray:
@@ -292,37 +340,46 @@ class LevelColumn:
     extra: dict[str, Any] = field(default_factory=dict)
 
 
-def associations(columns: Sequence[LevelColumn]) -> list[dict[str, Any]]:
+def associations(columns: Sequence[LevelColumn],
+                 mapper: Callable[..., Iterable[Any]] = map) -> list[dict[str, Any]]:
     """Every pair of categorical columns with at most 50 levels: Cramer's V (plain and corrected),
-    chi-square, n used, missing excluded; Kendall's tau-b when both are ordinal."""
+    chi-square, n used, missing excluded; Kendall's tau-b when both are ordinal. ``mapper`` (e.g. a
+    thread pool's map) computes the pairs."""
+    return list(mapper(association, association_pairs(columns)))
+
+
+def association_pairs(columns: Sequence[LevelColumn]) -> list[tuple[LevelColumn, LevelColumn]]:
+    """The pairs that ``associations`` measures, in its order."""
     used = [c for c in columns if 0 < c.levels <= MAX_PAIR_LEVELS]
-    out: list[dict[str, Any]] = []
-    for i, a in enumerate(used):
-        for b in used[i + 1:]:
-            both = (a.codes >= 0) & (b.codes >= 0)
-            n = int(both.sum())
-            table = significance.contingency(a.codes[both], b.codes[both], a.levels, b.levels)
-            test = significance.chi_square(table)
-            v, v_corrected = significance.cramers_v(test)
-            entry: dict[str, Any] = {
-                "a": a.name, "b": b.name, "cramers_v": v, "cramers_v_corrected": v_corrected, "n": n,
-                "missing_excluded": int(both.size - n),
-                "chi2": test["chi2"] if test else None, "df": test["df"] if test else None,
-                "p_value": test["p_value"] if test else None,
-            }
-            if a.ordinal_rank is not None and b.ordinal_rank is not None:
-                ordered = table[np.argsort(a.ordinal_rank)][:, np.argsort(b.ordinal_rank)]
-                entry["kendall_tau_b"] = significance.kendall_tau_b(ordered) if n >= MIN_PAIR_CASES else None
-            out.append(entry)
-    return out
+    return [(a, b) for i, a in enumerate(used) for b in used[i + 1:]]
 
 
-def group_comparisons(by: LevelColumn, numeric: Sequence[NumericColumn]) -> dict[str, Any]:
-    """ANOVA and Kruskal-Wallis of each numeric variable across the groups of ``by``, Holm-adjusted."""
-    results: list[dict[str, Any]] = []
-    for column in numeric:
-        if column.name == by.name:
-            continue
+def association(job: tuple[LevelColumn, LevelColumn]) -> dict[str, Any]:
+    """One pair of ``associations``."""
+    a, b = job
+    both = (a.codes >= 0) & (b.codes >= 0)
+    n = int(both.sum())
+    table = significance.contingency(a.codes[both], b.codes[both], a.levels, b.levels)
+    test = significance.chi_square(table)
+    v, v_corrected = significance.cramers_v(test)
+    entry: dict[str, Any] = {
+        "a": a.name, "b": b.name, "cramers_v": v, "cramers_v_corrected": v_corrected, "n": n,
+        "missing_excluded": int(both.size - n),
+        "chi2": test["chi2"] if test else None, "df": test["df"] if test else None,
+        "p_value": test["p_value"] if test else None,
+    }
+    if a.ordinal_rank is not None and b.ordinal_rank is not None:
+        ordered = table[np.argsort(a.ordinal_rank)][:, np.argsort(b.ordinal_rank)]
+        entry["kendall_tau_b"] = significance.kendall_tau_b(ordered) if n >= MIN_PAIR_CASES else None
+    return entry
+
+
+def group_comparisons(by: LevelColumn, numeric: Sequence[NumericColumn],
+                      mapper: Callable[..., Iterable[Any]] = map) -> dict[str, Any]:
+    """ANOVA and Kruskal-Wallis of each numeric variable across the groups of ``by``, Holm-adjusted.
+    ``mapper`` (e.g. a thread pool's map) computes the variables' tests."""
+
+    def compare(column: NumericColumn) -> dict[str, Any]:
         rows = np.flatnonzero(column.base.valid & (by.codes >= 0))
         entry: dict[str, Any] = {"variable": column.name, "n": int(rows.size), "anova": None,
                                  "kruskal_wallis": None}
@@ -332,7 +389,9 @@ def group_comparisons(by: LevelColumn, numeric: Sequence[NumericColumn]) -> dict
             entry["anova"] = significance.anova(groups, column.base.centred[rows], k)
             ranks, tie_sum = column.base.ranks(rows)
             entry["kruskal_wallis"] = significance.kruskal_wallis(groups, ranks, k, tie_sum)
-        results.append(entry)
+        return entry
+
+    results = list(mapper(compare, [column for column in numeric if column.name != by.name]))
     for test in ("anova", "kruskal_wallis"):
         adjusted = significance.holm([r[test]["p_unadjusted"] if r[test] else None for r in results])
         for entry, p in zip(results, adjusted):

@@ -13,7 +13,7 @@ from __future__ import annotations
 import math
 import os
 from collections.abc import Mapping, Sequence
-from concurrent.futures import ThreadPoolExecutor
+from concurrent.futures import Executor, ThreadPoolExecutor
 from typing import Any
 
 import numpy as np
@@ -178,40 +178,57 @@ def _target_section(column: _Column, strings: pa.ChunkedArray) -> tuple[dict[str
     return section, levels
 
 
+def _leakage_measure(column: _Column, target: _Column, target_levels: pairs.LevelColumn | None,
+                     associated: Mapping[tuple[str, str], dict[str, Any]]) -> tuple[str | None, float | None]:
+    """How nearly the target determines one input with a class target: eta^2 for a numeric input,
+    the bias-corrected Cramer's V for a categorical one (taken from the associations when they hold
+    the pair in this order)."""
+    if column is target or column.spec.role in ("identifier", "excluded", "target") or target_levels is None:
+        return None, None
+    if column.base is not None:
+        rows = np.flatnonzero(column.base.valid & (target_levels.codes >= 0))
+        if rows.size >= pairs.MIN_PAIR_CASES:
+            groups, k = pairs.compact_groups(target_levels.codes[rows], target_levels.levels)
+            result = significance.anova(groups, column.base.centred[rows], k)
+            return "eta_squared", (result["eta_squared"] if result else None)
+    elif column.levels is not None:
+        found = associated.get((column.name, target.name)) if target_levels is target.levels else None
+        if found is not None:
+            return "cramers_v_corrected", found["cramers_v_corrected"]
+        result = pairs.associations([column.levels, target_levels])
+        if result:
+            return "cramers_v_corrected", result[0]["cramers_v_corrected"]
+    return None, None
+
+
 def _leakage(columns: Sequence[_Column], target: _Column, target_levels: pairs.LevelColumn | None,
-             correlation_pairs: Sequence[dict[str, Any]], availability: Mapping[str, str]
-             ) -> list[dict[str, Any]]:
+             correlation_pairs: Sequence[dict[str, Any]], availability: Mapping[str, str],
+             measures: Sequence[tuple[str | None, float | None]]) -> list[dict[str, Any]]:
     """Inputs nearly determined by the target (association >= 0.9), and inputs available after the
     index time: eta^2 (numeric input, class target), bias-corrected Cramer's V (categorical input,
-    class target), r^2 (numeric input, numeric target)."""
+    class target), r^2 (numeric input, numeric target). ``measures``: ``_leakage_measure`` of each
+    column."""
     found: list[dict[str, Any]] = []
     r_with_target = {
         (p["b"] if p["a"] == target.name else p["a"]): p["pearson"]
         for p in correlation_pairs if target.name in (p["a"], p["b"]) and p["pearson"] is not None
     }
-    for column in columns:
+    for column, (measure, value) in zip(columns, measures):
         if column is target or column.spec.role in ("identifier", "excluded", "target"):
             continue
         if availability.get(column.name, getattr(column.spec, "availability", None)) == "after":
             found.append({"variable": column.name, "reason": "available after the index time",
                           "measure": None, "value": None})
-        measure, value = None, None
-        if target_levels is not None and column.base is not None:
-            rows = np.flatnonzero(column.base.valid & (target_levels.codes >= 0))
-            if rows.size >= pairs.MIN_PAIR_CASES:
-                groups, k = pairs.compact_groups(target_levels.codes[rows], target_levels.levels)
-                result = significance.anova(groups, column.base.centred[rows], k)
-                measure, value = "eta_squared", (result["eta_squared"] if result else None)
-        elif target_levels is not None and column.levels is not None:
-            result = pairs.associations([column.levels, target_levels])
-            if result:
-                measure, value = "cramers_v_corrected", result[0]["cramers_v_corrected"]
-        elif column.name in r_with_target:
+        if measure is None and target_levels is None and column.name in r_with_target:
             measure, value = "r_squared", r_with_target[column.name] ** 2
         if value is not None and value >= LEAKAGE_STRENGTH:
             found.append({"variable": column.name, "reason": "nearly determined by the target",
                           "measure": measure, "value": value})
     return found
+
+
+# the relative cost of profiling a column of each type: the costly ones start first
+COST = {"identifier": 5, "text": 5, "number": 4, "date": 3, "datetime": 3, "integer": 2}
 
 
 def profile_table(
@@ -224,8 +241,10 @@ def profile_table(
     inferred_missing: Mapping[str, Sequence[str]] | None = None,
     weight: str | None = None,
     availability: Mapping[str, str] | None = None,
+    pool: Executor | None = None,
 ) -> dict[str, Any]:
-    """The whole profile as the contract's JSON document (numbers may still be numpy/NaN: see clean)."""
+    """The whole profile as the contract's JSON document (numbers may still be numpy/NaN: see clean).
+    ``pool``: the threads to use (default: ``workers()``, shut down at the end)."""
     names = list(table.column_names)
     for option, name in (("--target", target), ("--by", by)):
         if name is not None and name not in names:
@@ -233,44 +252,58 @@ def profile_table(
     if not 0 < strong <= 1:
         raise UsageError(f"--strong {strong}: must be above 0 and at most 1")
     inferred_missing = inferred_missing or {}
-    # columns are independent and numpy/Arrow release the GIL in their loops: a thread per core
-    with workers() as pool:
-        columns = list(pool.map(
-            lambda name: _profile_column(name, table.column(name),
-                                         specs.get(name) or VariableSpec(name=name, type="text"),
-                                         inferred_missing.get(name, ())),
-            names,
-        ))
-    by_name = {c.name: c for c in columns}
-    numeric = [
-        pairs.NumericColumn(c.name, c.base, c.entry["missing"],
-                            is_input=c.name != target and c.spec.role not in ("target", "identifier", "excluded"))
-        for c in columns if c.base is not None and c.spec.role not in ("identifier", "excluded")
-    ]
-    with workers() as pool:
+    spec_of = {name: specs.get(name) or VariableSpec(name=name, type="text") for name in names}
+    own_pool = pool is None
+    pool = pool or workers()
+    try:
+        # columns are independent and numpy/Arrow release the GIL in their loops: one pool for every
+        # column and pair, the costly columns first
+        started = {name: pool.submit(_profile_column, name, table.column(name), spec_of[name],
+                                     inferred_missing.get(name, ()))
+                   for name in sorted(names, key=lambda name: -COST.get(spec_of[name].type, 1))}
+        columns = [started[name].result() for name in names]
+        by_name = {c.name: c for c in columns}
+        numeric = [
+            pairs.NumericColumn(c.name, c.base, c.entry["missing"],
+                                is_input=c.name != target and c.spec.role not in ("target", "identifier", "excluded"))
+            for c in columns if c.base is not None and c.spec.role not in ("identifier", "excluded")
+        ]
+        level_columns = [c.levels for c in columns
+                         if c.levels is not None and c.spec.role not in ("identifier", "excluded")]
+        associated = pool.map(pairs.association, pairs.association_pairs(level_columns))
+        target_section, target_levels = (None, None)
+        if target is not None:
+            target_section, target_levels = _target_section(by_name[target], table.column(target))
+        grouping = None
+        if by is not None:
+            grouping = _as_levels(by_name[by], table.column(by))
+            if grouping.levels > MAX_GROUPS:
+                raise UsageError(f"--by {by}: {grouping.levels} groups; at most {MAX_GROUPS} can be compared")
         correlation = pairs.correlations(numeric, strong, pool.map)
-    level_columns = [c.levels for c in columns if c.levels is not None and c.spec.role not in ("identifier", "excluded")]
-    document: dict[str, Any] = {
-        "rows": table.num_rows,
-        "columns": table.num_columns,
-        "variables": [c.entry for c in columns],
-        "target": None,
-        "correlations": correlation["pairs"],
-        "correlations_columns": {"numeric": correlation["columns_numeric"], "used": correlation["columns_used"]},
-        "associations": pairs.associations(level_columns),
-        "groups": None,
-        "leakage": [],
-    }
-    if target is not None:
-        section, target_levels = _target_section(by_name[target], table.column(target))
-        document["target"] = section
-        document["leakage"] = _leakage(columns, by_name[target], target_levels, correlation["pairs"],
-                                       availability or {})
-    if by is not None:
-        grouping = _as_levels(by_name[by], table.column(by))
-        if grouping.levels > MAX_GROUPS:
-            raise UsageError(f"--by {by}: {grouping.levels} groups; at most {MAX_GROUPS} can be compared")
-        document["groups"] = pairs.group_comparisons(grouping, numeric)
+        association_list = list(associated)
+        document: dict[str, Any] = {
+            "rows": table.num_rows,
+            "columns": table.num_columns,
+            "variables": [c.entry for c in columns],
+            "target": None,
+            "correlations": correlation["pairs"],
+            "correlations_columns": {"numeric": correlation["columns_numeric"], "used": correlation["columns_used"]},
+            "associations": association_list,
+            "groups": None,
+            "leakage": [],
+        }
+        if target is not None:
+            document["target"] = target_section
+            by_pair = {(a["a"], a["b"]): a for a in association_list}
+            measures = list(pool.map(
+                lambda column: _leakage_measure(column, by_name[target], target_levels, by_pair), columns))
+            document["leakage"] = _leakage(columns, by_name[target], target_levels, correlation["pairs"],
+                                           availability or {}, measures)
+        if grouping is not None:
+            document["groups"] = pairs.group_comparisons(grouping, numeric, pool.map)
+    finally:
+        if own_pool:
+            pool.shutdown()
     if weight is not None:
         document["unweighted"] = f"the profile is unweighted; {weight} is a weight variable"
     document["suggestions"] = suggest.suggestions(document, {c.name: c.spec for c in columns})
