@@ -169,12 +169,17 @@ def profile_file(
     location: StoreLocation | None = None,
 ) -> dict[str, Any]:
     """The profile document of one file (the ``profile --json`` contract plus ``file`` and ``source``)."""
-    from studylog.data import profile
-    from studylog.data.read import read_table
+    from concurrent.futures import ThreadPoolExecutor
 
-    arrow_without_pandas()
     path = Path(path)
-    data = read_table(path, encoding=encoding, sheet=sheet)
+    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="studylog-read") as reader:
+        reading = reader.submit(_read, path, encoding, sheet)
+        # what the profile needs besides the data, imported while the file is read (pyarrow reads
+        # outside Python's lock): the computations, and the distributions of the p-values
+        from studylog.data import profile
+
+        _import_quietly("scipy.special")
+        data = reading.result()
     pool = profile.workers()
     try:
         return _profile_read(data, path, pool, target=target, by=by, strong=strong, table=table,
@@ -183,29 +188,27 @@ def profile_file(
         pool.shutdown()
 
 
-def _import_in_background(name: str) -> None:
-    """Start importing a module that a later step needs, on another thread, while this one works
-    (an import that the later step starts meanwhile waits for this one)."""
+def _read(path: Path, encoding: str | None, sheet: str | None) -> Any:
+    from studylog.data.read import read_table
+
+    arrow_without_pandas()
+    return read_table(path, encoding=encoding, sheet=sheet)
+
+
+def _import_quietly(name: str) -> None:
+    """Import a module a later step needs, now; a failure is left for that step's own import to report."""
     import importlib
-    import sys
-    import threading
 
-    def load() -> None:
-        try:
-            importlib.import_module(name)
-        except Exception:  # noqa: BLE001 - the later step's own import reports it
-            pass
-
-    if name not in sys.modules:
-        threading.Thread(target=load, daemon=True).start()
+    try:
+        importlib.import_module(name)
+    except Exception:  # noqa: BLE001 - reported where the module is used
+        pass
 
 
 def _profile_read(data: Any, path: Path, pool: Any, *, target: str | None, by: str | None, strong: float,
                   table: str | None, location: StoreLocation | None) -> dict[str, Any]:
     from studylog.data import profile
 
-    # the p-values' distributions: a fifth of a second to import, done while the types are inferred
-    _import_in_background("scipy.special")
     columns = list(data.column_names)
     known = study_dictionary(location, columns, path, table)
     specs = _specs_for(columns, known.spec)

@@ -44,6 +44,7 @@ FIRST_BLOCK = 1 << 20
 LARGEST_BLOCK = 1 << 30
 CHUNK = 1 << 20
 QUOTE = ord('"')
+SCAN_BLOCK = 1 << 23
 # Blocks of the multithreaded whole-file read: large enough that the table has few chunks, small enough
 # that the parser's memory per thread stays small beside the table.
 WHOLE_BLOCK = 1 << 20
@@ -398,24 +399,67 @@ def _csv_whole(source: Source) -> pa.Table | None:
     or an odd number of quotes sends the caller back to the streaming reader, which reads the file
     again and reports exactly what a check would (with the line; the threaded parser does not number
     its rows).
+
+    Without a progress callback pyarrow reads the file itself, outside Python, while another thread
+    looks for NUL bytes and counts quotes: the read then never waits for Python's lock, and the
+    caller's thread is free to do other work meanwhile.
     """
+    import pyarrow as pa
+
+    width = len(source.columns)
+    watch_nul = not source.encoding.startswith(("utf-16", "utf-32"))
+    options = _csv_options(source, width, WHOLE_BLOCK, threads=True)
+    if source.progress is not None:
+        handle = _WatchedFile(source.path, source.size, source.progress, watch_nul=watch_nul)
+        with handle:
+            table = _read_whole(handle, options)
+        nul_at, quotes = handle.nul_at, handle.quotes
+    else:
+        from concurrent.futures import ThreadPoolExecutor
+
+        with ThreadPoolExecutor(max_workers=1, thread_name_prefix="studylog-scan") as pool:
+            scanned = pool.submit(_scan_bytes, source.path, watch_nul)
+            try:
+                with pa.OSFile(str(source.path)) as native:
+                    table = _read_whole(native, options)
+            except OSError:
+                table = None
+            nul_at, quotes = scanned.result()
+    if table is None or nul_at is not None or quotes % 2 or table.num_columns != width:
+        return None
+    return table.slice(1).rename_columns(source.columns)
+
+
+def _read_whole(handle: Any, options: dict[str, Any]) -> pa.Table | None:
     import pyarrow as pa
     import pyarrow.csv as pacsv
 
-    width = len(source.columns)
-    handle = _WatchedFile(
-        source.path, source.size, source.progress, watch_nul=not source.encoding.startswith(("utf-16", "utf-32"))
-    )
-    with handle:
-        try:
-            table = pacsv.read_csv(handle, **_csv_options(source, width, WHOLE_BLOCK, threads=True))
-        except StudylogError:
-            raise
-        except (pa.ArrowException, UnicodeError, OSError, ValueError, LookupError):
-            return None
-    if handle.nul_at is not None or handle.quotes % 2 or table.num_columns != width:
+    try:
+        return pacsv.read_csv(handle, **options)
+    except StudylogError:
+        raise
+    except (pa.ArrowException, UnicodeError, OSError, ValueError, LookupError):
         return None
-    return table.slice(1).rename_columns(source.columns)
+
+
+def _scan_bytes(path: Path, watch_nul: bool) -> tuple[int | None, int]:
+    """The offset of the first NUL byte (None without one, or when not watched) and the number of
+    quote characters, as ``_WatchedFile`` finds them."""
+    import numpy as np
+
+    buffer = bytearray(SCAN_BLOCK)
+    done = quotes = 0
+    nul_at: int | None = None
+    with open(path, "rb", buffering=0) as handle:
+        while read := handle.readinto(buffer):
+            chunk = np.frombuffer(buffer, dtype=np.uint8, count=read)
+            if watch_nul and nul_at is None:
+                found = buffer.find(b"\x00", 0, read)
+                if found >= 0:
+                    nul_at = done + found
+            quotes += int(np.count_nonzero(chunk == QUOTE))
+            done += read
+    return nul_at, quotes
 
 
 def _probe_csv(source: Source, width: int) -> tuple[list[Any], bool]:
