@@ -356,3 +356,23 @@ def test_whole_file_read_reports_errors_as_the_streaming_reader(
         read_table(path)
     assert error in caught.value.message
     assert caught.value.line == line
+
+
+def test_whole_file_read_with_progress_reaches_the_file_size(tmp_path: Path) -> None:
+    path = write(tmp_path, "x.csv", b"a,b\n" + b"1,2\n" * 5000)
+    seen: list[tuple[int, int]] = []
+    table = read_table(path, progress=lambda done, total: seen.append((done, total)))
+    assert table.num_rows == 5000
+    assert seen[-1] == (path.stat().st_size, path.stat().st_size)
+
+
+@pytest.mark.parametrize("data", [b'a,"b"\n1,2\n', b'a,b\n"1",\x00\n' + b"x" * (3 << 20) + b'\x00"\n', b""])
+def test_the_scan_finds_what_the_watched_file_finds(tmp_path: Path, data: bytes,
+                                                    monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setattr(read, "SCAN_BLOCK", 1 << 20)
+    path = write(tmp_path, "x.csv", data)
+    watched = read._WatchedFile(path, len(data), None, watch_nul=True)
+    with watched:
+        while watched.read(1 << 16):
+            pass
+    assert read._scan_bytes(path, watch_nul=True) == (watched.nul_at, watched.quotes)
