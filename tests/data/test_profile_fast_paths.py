@@ -79,3 +79,17 @@ def test_counting_decimals_builds_the_same_rank_base_as_sorting(values: np.ndarr
     assert np.array_equal(np.signbit(counted.sorted_values), np.signbit(ordered.sorted_values))
     assert (counted.groups, counted.total, counted.total_squares) == (ordered.groups, ordered.total,
                                                                       ordered.total_squares)
+
+
+@pytest.mark.parametrize("texts", [
+    ["2020-01-05", "1600-01-01", "0000-02-29", "9999-12-31", "2000-02-29", None],
+    ["2020-01-05", "2023-02-30"],  # strptime rolls it over to 1 March: the cast refuses, strptime decides
+    ["2020-01-05", "2020-13-01", "2020-01-00", "1900-02-29"],
+    ["2020-01-05", "2020-1-5", "2020-W01-1", "+020-01-05", "2020 01 05", " 2020-01-5"],
+    [None, None],
+])
+def test_iso_dates_read_as_strptime_reads_them(texts: list[str | None]) -> None:
+    strings = pa.chunked_array([pa.array(texts, pa.string())])
+    expected = pc.cast(pc.strptime(strings, format="%Y-%m-%d", unit="s", error_is_null=True), pa.int64())
+    found = univariate.parse_dates(strings, None, "date")
+    assert np.array_equal(found, univariate.to_numpy(pc.cast(expected, pa.float64()), np.nan), equal_nan=True)

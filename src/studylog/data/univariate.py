@@ -352,9 +352,10 @@ def parse_dates(strings: pa.ChunkedArray, spec: VariableSpec | None, kind: str) 
     fmt = spec.date_format if spec is not None and spec.date_format else None
     if fmt is None and kind == "date":
         fmt = "%Y-%m-%d"
-    if fmt is not None:
+    parsed = _iso_dates(strings) if fmt == "%Y-%m-%d" else None
+    if parsed is None and fmt is not None:
         parsed = pc.strptime(strings, format=fmt, unit="s", error_is_null=True)
-    else:
+    elif parsed is None:
         try:
             parsed = pc.cast(strings, pa.timestamp("s"))
         except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
@@ -365,6 +366,19 @@ def parse_dates(strings: pa.ChunkedArray, spec: VariableSpec | None, kind: str) 
                 pc.strptime(strings, format="%Y-%m-%d", unit="s", error_is_null=True),
             )
     return _writable_floats(pc.cast(pc.cast(parsed, pa.int64()), pa.float64()))
+
+
+def _iso_dates(strings: pa.ChunkedArray) -> pa.ChunkedArray | None:
+    """``strptime`` with ``%Y-%m-%d`` when every text is a valid date of ten characters, by Arrow's
+    ISO cast (a third of the time); None otherwise. On such texts the two agree; the cast refuses
+    what strptime would roll over (2023-02-30) or not read at all, and then strptime is used."""
+    lengths = pc.min_max(pc.binary_length(strings))
+    if lengths["min"].as_py() != 10 or lengths["max"].as_py() != 10:
+        return None
+    try:
+        return pc.cast(strings, pa.timestamp("s"))
+    except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
+        return None
 
 
 def invalid_examples(strings: pa.ChunkedArray, invalid: np.ndarray, masked: bool) -> list[str]:
@@ -482,7 +496,7 @@ def date_summary(seconds_sorted: np.ndarray, kind: str) -> dict[str, Any]:
     if seconds_sorted.size == 0:
         return out
     stamps = seconds_sorted.astype(np.int64)
-    unique = np.unique(stamps)
+    unique = stamps[np.concatenate(([True], stamps[1:] != stamps[:-1]))]  # sorted already
     as_dt = unique.astype("datetime64[s]")
     unit = "D" if kind == "date" else "s"
     out["min"] = str(as_dt[0].astype(f"datetime64[{unit}]"))
