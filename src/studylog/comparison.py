@@ -88,7 +88,9 @@ def load_records(session: Session, drop_id: int, kinds: tuple[str, ...] | None =
     query = select(DigestChunk.kind, DigestChunk.seq, DigestChunk.data).where(DigestChunk.drop_id == drop_id)
     if kinds is not None:
         query = query.where(DigestChunk.kind.in_(kinds))
-    return Records.from_chunks([(k, s, bytes(d)) for k, s, d in session.execute(query)])
+    # one chunk at a time, meta first: each is copied into place and let go (Records.from_chunks)
+    rows = session.execute(query.order_by(DigestChunk.seq).execution_options(yield_per=1))
+    return Records.from_chunks((k, s, bytes(d)) for k, s, d in rows)
 
 
 def stored_profiles(session: Session, drop_id: int) -> dict[str, dict[str, Any]]:

@@ -46,7 +46,7 @@ from __future__ import annotations
 
 import json
 from dataclasses import dataclass, field
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterable, Iterator
 from typing import TYPE_CHECKING, Any
 
 if TYPE_CHECKING:
@@ -181,27 +181,51 @@ class Records:
                 yield ("columns", 3 * number + 3, np.ascontiguousarray(self.cells[start:stop], dtype="<u2").tobytes())
 
     @classmethod
-    def from_chunks(cls, chunks: list[tuple[str, int, bytes]]) -> Records:
+    def from_chunks(cls, chunks: Iterable[tuple[str, int, bytes]]) -> Records:
+        """The records of stored chunks, in any order. When the meta chunk comes first (``seq`` order,
+        as the store hands them), each records chunk is copied into place as it arrives, so a drop's
+        digests are never held twice."""
         import numpy as np
 
-        by_kind: dict[str, dict[int, bytes]] = {}
+        meta: dict[str, Any] | None = None
+        digests: np.ndarray | None = None
+        waiting: dict[int, bytes] = {}
+        keys: dict[int, bytes] = {}
+        stored: dict[int, bytes] = {}
         for kind, seq, data in chunks:
-            by_kind.setdefault(kind, {})[seq] = data
-        if 0 not in by_kind.get("meta", {}):
+            if kind == "meta" and seq == 0:
+                meta = json.loads(data)
+                digests = np.empty((int(meta["rows"]), 4), dtype=np.uint64, order="F")
+                for early, part in waiting.items():
+                    _place(digests, meta, early, part)
+                waiting.clear()
+            elif kind == "records":
+                if digests is None:
+                    waiting[seq] = data
+                else:
+                    _place(digests, meta, seq, data)
+            elif kind == "keys":
+                keys[seq] = data
+            elif kind == "columns":
+                stored[seq] = data
+        if meta is None or digests is None:
             return cls(key=[], columns=[], digests=np.zeros((0, 4), dtype=np.uint64))
-        meta = json.loads(by_kind["meta"][0])
-        records = by_kind.get("records", {})
-        parts = [np.frombuffer(records[s], dtype="<u8").reshape(4, -1) for s in sorted(records)]
-        digests = lane_major(parts)
-        keys = by_kind.get("keys", {})
         cells = None
-        if meta.get("cell_digests") and by_kind.get("columns"):
+        if meta.get("cell_digests") and stored:
             width = len(meta["columns"])
-            stored = by_kind["columns"]
             cells = np.concatenate([np.frombuffer(stored[s], dtype="<u2").reshape(-1, width)
                                     for s in sorted(stored)])
         return cls(key=list(meta["key"]), columns=list(meta["columns"]), digests=digests,
                    key_texts=[keys[s] for s in sorted(keys)], cells=cells)
+
+
+def _place(digests: np.ndarray, meta: dict[str, Any], seq: int, data: bytes) -> None:
+    """Copy one stored records chunk (lane-major, chunk c at seq 3c + 1) into its rows."""
+    import numpy as np
+
+    lanes = np.frombuffer(data, dtype="<u8").reshape(4, -1)
+    start = (seq - 1) // 3 * int(meta.get("chunk_rows", CHUNK_ROWS))
+    digests[start:start + lanes.shape[1]] = lanes.T
 
 
 class SpilledRecords(Records):
