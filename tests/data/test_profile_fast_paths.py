@@ -93,3 +93,27 @@ def test_iso_dates_read_as_strptime_reads_them(texts: list[str | None]) -> None:
     expected = pc.cast(pc.strptime(strings, format="%Y-%m-%d", unit="s", error_is_null=True), pa.int64())
     found = univariate.parse_dates(strings, None, "date")
     assert np.array_equal(found, univariate.to_numpy(pc.cast(expected, pa.float64()), np.nan), equal_nan=True)
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.lists(st.one_of(st.none(), st.sampled_from(["a", "b", "", " ", "\u00a0", "NA", "-99", " a"])),
+                max_size=40),
+       st.lists(st.sampled_from(["NA", "-99", " ", "zz"]), max_size=3))
+def test_missing_found_on_the_levels_equals_missing_found_on_the_rows(values: list[str | None],
+                                                                      codes: list[str]) -> None:
+    strings = pa.chunked_array([pa.array(values, pa.string())])
+    plain = univariate.find_missing(strings, codes)
+    encoded = univariate.Encoded.of(strings)
+    found, level_codes = univariate.find_missing_encoded(encoded, codes)
+    assert np.array_equal(found.mask, plain.mask)
+    assert (found.blank, found.codes) == (plain.blank, plain.codes)
+    levels, counts, expected_codes = univariate.level_counts(strings, plain.mask)
+    assert np.array_equal(level_codes, expected_codes)
+    found_levels, found_counts = univariate.level_counts_encoded(encoded, level_codes)
+    assert found_levels == levels and np.array_equal(found_counts, counts)
+
+
+@pytest.mark.parametrize("text", ["", " ", "\t", "\u00a0", "\u3000", " 1", "1 "])
+def test_a_column_that_reads_as_numbers_has_no_blanks(text: str) -> None:
+    # find_missing(blank_free=True) rests on Arrow refusing these as numbers
+    assert univariate.float_values(pa.chunked_array([pa.array(["1.5", text])])) is None

@@ -74,7 +74,16 @@ def _profile_column(name: str, strings: pa.ChunkedArray, spec: VariableSpec,
                     inferred_codes: Sequence[str]) -> _Column:
     declared = [code.code for code in spec.missing_codes]
     extra = [code for code in inferred_codes if code not in declared]
-    missing = univariate.find_missing(strings, declared + extra)
+    kind = spec.type
+    floats = encoded = level_codes = None
+    # blanks and missing codes found once per distinct level, or not looked for in a column that
+    # reads as numbers throughout
+    if kind in LEVEL_TYPES or kind == "boolean":
+        encoded = univariate.Encoded.of(strings)
+        missing, level_codes = univariate.find_missing_encoded(encoded, declared + extra)
+    else:
+        floats = univariate.float_values(strings) if kind in NUMERIC_TYPES else None
+        missing = univariate.find_missing(strings, declared + extra, blank_free=floats is not None)
     rows = len(strings)
     codes = [dict(c, declared=c["code"] in declared) for c in missing.codes]
     entry: dict[str, Any] = {
@@ -84,16 +93,15 @@ def _profile_column(name: str, strings: pa.ChunkedArray, spec: VariableSpec,
     }
     column = _Column(name, spec, entry)
     masked = spec.masked
-    kind = spec.type
     if kind in NUMERIC_TYPES:
-        values, invalid = univariate.parse_numbers(strings, missing.mask)
+        values, invalid = univariate.parse_numbers(strings, missing.mask, floats)
         if kind == "integer":
             fractional = np.isfinite(values) & (values != np.floor(values))
             invalid |= fractional
             values[fractional] = np.nan
         column.base = pairs.RankBase.of(values, integer=kind == "integer", reuse=True)
         entry.update(univariate.numeric_summary(column.base.sorted_values, kind == "integer"))
-        entry["invalid"] = int(invalid.sum())
+        entry["invalid"] = int(np.count_nonzero(invalid))
         entry["invalid_examples"] = univariate.invalid_examples(strings, invalid, masked)
         entry["impossible"] = _impossible(column.base.sorted_values, spec)
         if masked:
@@ -104,10 +112,10 @@ def _profile_column(name: str, strings: pa.ChunkedArray, spec: VariableSpec,
         seconds[missing.mask] = np.nan
         invalid = ~missing.mask & np.isnan(seconds)
         entry.update(univariate.date_summary(np.sort(seconds[~np.isnan(seconds)]), kind))
-        entry["invalid"] = int(invalid.sum())
+        entry["invalid"] = int(np.count_nonzero(invalid))
         entry["invalid_examples"] = univariate.invalid_examples(strings, invalid, masked)
-    elif kind in LEVEL_TYPES or kind == "boolean":
-        levels, counts, level_codes = univariate.level_counts(strings, missing.mask)
+    elif encoded is not None and level_codes is not None:
+        levels, counts = univariate.level_counts_encoded(encoded, level_codes)
         entry.update(univariate.level_summary(levels, counts, masked, kind))
         if kind == "boolean" and (spec.true_values or spec.false_values):
             truth = np.isin(np.asarray(levels, dtype=object), list(spec.true_values))

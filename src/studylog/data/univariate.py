@@ -275,7 +275,7 @@ class Missing:
 
     @property
     def count(self) -> int:
-        return int(self.mask.sum())
+        return int(np.count_nonzero(self.mask))
 
 
 _NUMPY_TYPES = {
@@ -313,17 +313,54 @@ def _as_bool(array: pa.ChunkedArray | pa.Array) -> np.ndarray:
     return to_numpy(array, False)
 
 
-def find_missing(strings: pa.ChunkedArray, codes: Sequence[str]) -> Missing:
-    """Missing cells: null (empty in the file), whitespace only, or equal to one of ``codes``."""
+def find_missing(strings: pa.ChunkedArray, codes: Sequence[str], *, blank_free: bool = False) -> Missing:
+    """Missing cells: null (empty in the file), whitespace only, or equal to one of ``codes``.
+    ``blank_free``: the caller knows that no text is empty or whitespace only (see ``float_values``)."""
     null = _as_bool(pc.is_null(strings))
-    blank = _as_bool(pc.utf8_is_space(strings)) | _as_bool(pc.equal(pc.binary_length(strings), 0))
-    mask = null | blank
+    mask = null.copy()
+    blanks = 0
+    if not blank_free:
+        blank = _as_bool(pc.utf8_is_space(strings)) | _as_bool(pc.equal(pc.binary_length(strings), 0))
+        mask |= blank
+        blanks = np.count_nonzero(blank)
     counted = []
     for code in codes:
         hits = _as_bool(pc.equal(strings, code))
-        counted.append({"code": code, "count": int(hits.sum())})
+        counted.append({"code": code, "count": int(np.count_nonzero(hits))})
         mask |= hits
-    return Missing(mask=mask, blank=int(null.sum() + blank.sum()), codes=counted)
+    return Missing(mask=mask, blank=int(np.count_nonzero(null) + blanks), codes=counted)
+
+
+@dataclass
+class Encoded:
+    """A column as its distinct texts and each row's index among them (-1 where null)."""
+
+    dictionary: pa.Array
+    indices: np.ndarray  # int64
+
+    @classmethod
+    def of(cls, strings: pa.ChunkedArray) -> Encoded:
+        encoded = pc.dictionary_encode(strings).combine_chunks()
+        return cls(encoded.dictionary, to_numpy(encoded.indices, -1).astype(np.int64))
+
+
+def find_missing_encoded(encoded: Encoded, codes: Sequence[str]) -> tuple[Missing, np.ndarray]:
+    """``find_missing`` of an encoded column: each distinct text is tested once. Also each row's
+    level index with -1 where missing."""
+    dictionary, indices = encoded.dictionary, encoded.indices
+    present = indices >= 0
+    per_level = np.bincount(indices[present], minlength=len(dictionary))
+    blank = _as_bool(pc.utf8_is_space(dictionary)) | _as_bool(pc.equal(pc.binary_length(dictionary), 0))
+    missing_level = blank.copy()
+    counted = []
+    for code in codes:
+        hits = _as_bool(pc.equal(dictionary, code))
+        counted.append({"code": code, "count": int(per_level[hits].sum())})
+        missing_level |= hits
+    # a null's index, -1, reads the last entry: missing
+    mask = np.append(missing_level, True)[indices]
+    blanks = indices.size - int(np.count_nonzero(present)) + int(per_level[blank].sum())
+    return Missing(mask=mask, blank=blanks, codes=counted), np.where(mask, -1, indices)
 
 
 def _writable_floats(array: pa.ChunkedArray | pa.Array) -> np.ndarray:
@@ -331,11 +368,24 @@ def _writable_floats(array: pa.ChunkedArray | pa.Array) -> np.ndarray:
     return to_numpy(array, np.nan)
 
 
-def parse_numbers(strings: pa.ChunkedArray, missing: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Float values (NaN where missing or not a number) and the mask of present cells that failed."""
+def float_values(strings: pa.ChunkedArray) -> pa.ChunkedArray | None:
+    """The texts as float64 when every one of them reads as a number, else None. Arrow reads
+    neither an empty text nor one of whitespace as a number, so such a column has no blanks."""
     try:
-        values = _writable_floats(pc.cast(strings, pa.float64()))
+        return pc.cast(strings, pa.float64())
     except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
+        return None
+
+
+def parse_numbers(strings: pa.ChunkedArray, missing: np.ndarray,
+                  floats: pa.ChunkedArray | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Float values (NaN where missing or not a number) and the mask of present cells that failed.
+    ``floats``: ``float_values(strings)`` when the caller has it."""
+    if floats is None:
+        floats = float_values(strings)
+    if floats is not None:
+        values = _writable_floats(floats)
+    else:
         # the slow path: some cell is not a number (a code, a typo, spaces); parse what matches
         trimmed = pc.utf8_trim_whitespace(strings)
         number = pc.match_substring_regex(trimmed, NUMBER_PATTERN)
@@ -437,6 +487,12 @@ def level_counts(strings: pa.ChunkedArray, missing: np.ndarray) -> tuple[list[st
     codes[missing] = -1
     counts = np.bincount(codes[codes >= 0], minlength=len(levels))
     return levels, counts, codes
+
+
+def level_counts_encoded(encoded: Encoded, codes: np.ndarray) -> tuple[list[str], np.ndarray]:
+    """``level_counts`` of an encoded column, given its level indices with -1 where missing."""
+    levels = encoded.dictionary.to_pylist()
+    return levels, np.bincount(codes[codes >= 0], minlength=len(levels))
 
 
 def variants(levels: Sequence[str], counts: np.ndarray) -> list[list[str]]:
