@@ -357,14 +357,19 @@ def association_pairs(columns: Sequence[LevelColumn]) -> list[tuple[LevelColumn,
 def association(job: tuple[LevelColumn, LevelColumn]) -> dict[str, Any]:
     """One pair of ``associations``."""
     a, b = job
-    both = (a.codes >= 0) & (b.codes >= 0)
-    n = int(both.sum())
-    table = significance.contingency(a.codes[both], b.codes[both], a.levels, b.levels)
+    # counted with a row and a column for the missing (index -1 + 1 = 0), then left out: one pass
+    cell = a.codes + 1
+    cell *= b.levels + 1
+    cell += b.codes
+    cell += 1
+    joint = np.bincount(cell, minlength=(a.levels + 1) * (b.levels + 1)).reshape(a.levels + 1, b.levels + 1)
+    table = np.ascontiguousarray(joint[1:, 1:])
+    n = int(table.sum())
     test = significance.chi_square(table)
     v, v_corrected = significance.cramers_v(test)
     entry: dict[str, Any] = {
         "a": a.name, "b": b.name, "cramers_v": v, "cramers_v_corrected": v_corrected, "n": n,
-        "missing_excluded": int(both.size - n),
+        "missing_excluded": int(a.codes.size - n),
         "chi2": test["chi2"] if test else None, "df": test["df"] if test else None,
         "p_value": test["p_value"] if test else None,
     }

@@ -75,15 +75,19 @@ def _profile_column(name: str, strings: pa.ChunkedArray, spec: VariableSpec,
     declared = [code.code for code in spec.missing_codes]
     extra = [code for code in inferred_codes if code not in declared]
     kind = spec.type
-    floats = encoded = level_codes = None
+    floats = dates = encoded = level_codes = None
     # blanks and missing codes found once per distinct level, or not looked for in a column that
     # reads as numbers throughout
     if kind in LEVEL_TYPES or kind == "boolean":
         encoded = univariate.Encoded.of(strings)
         missing, level_codes = univariate.find_missing_encoded(encoded, declared + extra)
     else:
-        floats = univariate.float_values(strings) if kind in NUMERIC_TYPES else None
-        missing = univariate.find_missing(strings, declared + extra, blank_free=floats is not None)
+        if kind in NUMERIC_TYPES:
+            floats = univariate.float_values(strings)
+        elif kind in ("date", "datetime") and univariate.date_format(spec, kind) == "%Y-%m-%d":
+            dates = univariate.iso_dates(strings)
+        blank_free = floats is not None or dates is not None
+        missing = univariate.find_missing(strings, declared + extra, blank_free=blank_free)
     rows = len(strings)
     codes = [dict(c, declared=c["code"] in declared) for c in missing.codes]
     entry: dict[str, Any] = {
@@ -108,7 +112,7 @@ def _profile_column(name: str, strings: pa.ChunkedArray, spec: VariableSpec,
             for key in ("min", "max"):
                 entry[key] = None
     elif kind in ("date", "datetime"):
-        seconds = univariate.parse_dates(strings, spec, kind)
+        seconds = univariate.parse_dates(strings, spec, kind, dates)
         seconds[missing.mask] = np.nan
         invalid = ~missing.mask & np.isnan(seconds)
         entry.update(univariate.date_summary(np.sort(seconds[~np.isnan(seconds)]), kind))

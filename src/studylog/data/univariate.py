@@ -397,12 +397,19 @@ def parse_numbers(strings: pa.ChunkedArray, missing: np.ndarray,
     return values, invalid
 
 
-def parse_dates(strings: pa.ChunkedArray, spec: VariableSpec | None, kind: str) -> np.ndarray:
-    """Seconds since 1970 as float (NaN where missing or not a valid date in the stated format)."""
+def date_format(spec: VariableSpec | None, kind: str) -> str | None:
+    """The format dates are read in: the variable's, else ISO for dates (None: any ISO moment)."""
     fmt = spec.date_format if spec is not None and spec.date_format else None
-    if fmt is None and kind == "date":
-        fmt = "%Y-%m-%d"
-    parsed = _iso_dates(strings) if fmt == "%Y-%m-%d" else None
+    return "%Y-%m-%d" if fmt is None and kind == "date" else fmt
+
+
+def parse_dates(strings: pa.ChunkedArray, spec: VariableSpec | None, kind: str,
+                parsed: pa.ChunkedArray | None = None) -> np.ndarray:
+    """Seconds since 1970 as float (NaN where missing or not a valid date in the stated format).
+    ``parsed``: ``iso_dates(strings)`` when the caller has it."""
+    fmt = date_format(spec, kind)
+    if parsed is None and fmt == "%Y-%m-%d":
+        parsed = iso_dates(strings)
     if parsed is None and fmt is not None:
         parsed = pc.strptime(strings, format=fmt, unit="s", error_is_null=True)
     elif parsed is None:
@@ -418,10 +425,11 @@ def parse_dates(strings: pa.ChunkedArray, spec: VariableSpec | None, kind: str) 
     return _writable_floats(pc.cast(pc.cast(parsed, pa.int64()), pa.float64()))
 
 
-def _iso_dates(strings: pa.ChunkedArray) -> pa.ChunkedArray | None:
+def iso_dates(strings: pa.ChunkedArray) -> pa.ChunkedArray | None:
     """``strptime`` with ``%Y-%m-%d`` when every text is a valid date of ten characters, by Arrow's
     ISO cast (a third of the time); None otherwise. On such texts the two agree; the cast refuses
-    what strptime would roll over (2023-02-30) or not read at all, and then strptime is used."""
+    what strptime would roll over (2023-02-30) or not read at all, and then strptime is used. No
+    such text is empty or whitespace only."""
     lengths = pc.min_max(pc.binary_length(strings))
     if lengths["min"].as_py() != 10 or lengths["max"].as_py() != 10:
         return None
