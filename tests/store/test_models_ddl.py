@@ -1,5 +1,5 @@
 """The models' schema is pinned: the DDL of every table and index (SQLite and PostgreSQL) and what the DDL
-does not show (Python-side defaults, the mapped attributes).
+does not show (Python-side defaults, the mapped attributes); and that each model is configured on its own.
 
 The way the models are declared may change (it is tuned for start-up time); the schema they describe may
 not, except with a migration. After a deliberate schema change (a new migration step and the models
@@ -10,7 +10,10 @@ changed to match), regenerate the expected file:
 
 from __future__ import annotations
 
+import subprocess
+import sys
 from pathlib import Path
+from typing import Any
 
 from sqlalchemy.dialects import postgresql, sqlite
 from sqlalchemy.schema import CreateIndex, CreateTable
@@ -29,6 +32,18 @@ def _default(column) -> str:  # type: ignore[no-untyped-def]
     return f"scalar {default.arg!r}"
 
 
+def _mappers() -> list[Any]:
+    """Every mapper on ``Base.metadata``, whichever registry it is in."""
+    found: list[Any] = []
+    pending = list(Base.__subclasses__())
+    while pending:
+        cls = pending.pop()
+        pending.extend(cls.__subclasses__())
+        if "__mapper__" in cls.__dict__ and cls.__table__.metadata is Base.metadata:
+            found.append(cls.__mapper__)
+    return found
+
+
 def schema_text() -> str:
     lines: list[str] = []
     for dialect in (sqlite.dialect(), postgresql.dialect()):
@@ -44,7 +59,7 @@ def schema_text() -> str:
                          f"pk={column.primary_key} default={_default(column)} "
                          f"server_default={column.server_default!r}")
     lines.append("-- mapped classes and their attributes")
-    for mapper in sorted(Base.registry.mappers, key=lambda m: m.class_.__name__):
+    for mapper in sorted(_mappers(), key=lambda m: m.class_.__name__):
         lines.append(f"{mapper.class_.__name__} ({mapper.local_table.name}): "
                      + ", ".join(sorted(mapper.attrs.keys())))
     return "\n".join(lines) + "\n"
@@ -56,3 +71,17 @@ def test_the_models_describe_the_pinned_schema() -> None:
 
 if __name__ == "__main__":
     print(schema_text(), end="")
+
+
+def test_using_a_model_configures_its_own_registry_only() -> None:
+    # in a fresh process: the test session has long configured every mapper
+    code = (
+        "from sqlalchemy import select\n"
+        "from studylog.store.models import DataTable, Decision, Variable\n"
+        "select(Decision).compile()\n"
+        "print(Decision.__mapper__.configured, Variable.__mapper__.configured)\n"
+        "select(Variable).compile()\n"
+        "print(Variable.__mapper__.configured, DataTable.__mapper__.configured)\n"
+    )
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=60, check=True)
+    assert done.stdout.split() == ["True", "False", "True", "True"]

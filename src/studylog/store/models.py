@@ -11,6 +11,11 @@ Every command imports this module, so its declaration cost is paid on each start
 therefore evaluated by Python as the classes are made (no ``from __future__ import annotations``): with
 string annotations SQLAlchemy would ``eval`` each of the ~180 again, which cost a fifth of this module's
 import time. Forward references (the two relationships) are quoted.
+
+Each model has a registry of its own (DataTable and Variable, which are related, share one), all on the
+one ``Base.metadata``: SQLAlchemy configures every mapper of a registry when the first of them is used,
+and with a single registry a command that writes one decision configured all 16 models. A new model
+gets its own ``_XRegistry`` base the same way.
 """
 
 
@@ -23,20 +28,32 @@ from sqlalchemy import (
     ForeignKey,
     Integer,
     LargeBinary,
+    MetaData,
     String,
     Text,
     UniqueConstraint,
 )
-from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column, relationship
+from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column, registry, relationship
 
 Json = dict[str, Any] | list[Any] | None
+TYPE_MAP: dict[Any, Any] = {dict[str, Any]: JSON, list[Any]: JSON}
 
 
 class Base(DeclarativeBase):
-    type_annotation_map = {dict[str, Any]: JSON, list[Any]: JSON}
+    """What every model is; ``Base.metadata`` holds every table."""
+
+    registry = registry(metadata=MetaData(), type_annotation_map=TYPE_MAP)
 
 
-class Meta(Base):
+def _registry() -> registry:
+    return registry(metadata=Base.metadata, type_annotation_map=TYPE_MAP)
+
+
+class _MetaRegistry(Base, DeclarativeBase):
+    registry = _registry()
+
+
+class Meta(_MetaRegistry):
     """Key/value facts about the store itself; ``schema_version`` lives here."""
 
     __tablename__ = "studylog_meta"
@@ -44,7 +61,11 @@ class Meta(Base):
     value: Mapped[str] = mapped_column(Text)
 
 
-class Study(Base):
+class _StudyRegistry(Base, DeclarativeBase):
+    registry = _registry()
+
+
+class Study(_StudyRegistry):
     __tablename__ = "study"
     id: Mapped[int] = mapped_column(Integer, primary_key=True)
     title: Mapped[str] = mapped_column(Text, default="")
@@ -57,7 +78,12 @@ class Study(Base):
     author: Mapped[str] = mapped_column(String(255))
 
 
-class DataTable(Base):
+class _DictionaryRegistry(Base, DeclarativeBase):
+    # DataTable and Variable: one registry, since they are related
+    registry = _registry()
+
+
+class DataTable(_DictionaryRegistry):
     """A table of the study (members, visits, ...): its grain and its key."""
 
     __tablename__ = "data_tables"
@@ -75,7 +101,7 @@ class DataTable(Base):
     )
 
 
-class Variable(Base):
+class Variable(_DictionaryRegistry):
     """One entry of the data dictionary: a column of a table and everything known about it."""
 
     __tablename__ = "variables"
@@ -128,7 +154,11 @@ class Variable(Base):
     table: Mapped["DataTable"] = relationship(back_populates="variables")
 
 
-class Change(Base):
+class _ChangeRegistry(Base, DeclarativeBase):
+    registry = _registry()
+
+
+class Change(_ChangeRegistry):
     """One change to any record: the history that every entry, decision, question and threat keeps."""
 
     __tablename__ = "changes"
@@ -147,7 +177,11 @@ class Change(Base):
     at: Mapped[str] = mapped_column(String(40), index=True)
 
 
-class DictionaryVersion(Base):
+class _DictionaryVersionRegistry(Base, DeclarativeBase):
+    registry = _registry()
+
+
+class DictionaryVersion(_DictionaryVersionRegistry):
     """A named, frozen copy of the whole dictionary."""
 
     __tablename__ = "dictionary_versions"
@@ -161,7 +195,11 @@ class DictionaryVersion(Base):
     created_at: Mapped[str] = mapped_column(String(40))
 
 
-class Rule(Base):
+class _RuleRegistry(Base, DeclarativeBase):
+    registry = _registry()
+
+
+class Rule(_RuleRegistry):
     """A cross-field rule in studylog's expression language, checked on every drop of its table."""
 
     __tablename__ = "rules"
@@ -177,7 +215,11 @@ class Rule(Base):
     created_at: Mapped[str] = mapped_column(String(40))
 
 
-class Drop(Base):
+class _DropRegistry(Base, DeclarativeBase):
+    registry = _registry()
+
+
+class Drop(_DropRegistry):
     """One delivery of a table's data, as checked against the dictionary."""
 
     __tablename__ = "drops"
@@ -202,7 +244,11 @@ class Drop(Base):
     author: Mapped[str] = mapped_column(String(255))
 
 
-class Finding(Base):
+class _FindingRegistry(Base, DeclarativeBase):
+    registry = _registry()
+
+
+class Finding(_FindingRegistry):
     __tablename__ = "findings"
     id: Mapped[int] = mapped_column(Integer, primary_key=True)
     drop_id: Mapped[int] = mapped_column(ForeignKey("drops.id"), index=True)
@@ -217,7 +263,11 @@ class Finding(Base):
     message: Mapped[str] = mapped_column(Text)
 
 
-class Profile(Base):
+class _ProfileRegistry(Base, DeclarativeBase):
+    registry = _registry()
+
+
+class Profile(_ProfileRegistry):
     """The stored profile of one variable in one drop; drift is computed from these, never the file."""
 
     __tablename__ = "profiles"
@@ -228,7 +278,11 @@ class Profile(Base):
     data: Mapped[dict[str, Any]] = mapped_column(JSON)
 
 
-class DigestChunk(Base):
+class _DigestChunkRegistry(Base, DeclarativeBase):
+    registry = _registry()
+
+
+class DigestChunk(_DigestChunkRegistry):
     """Record digests of a keyed drop, packed as fixed-size binary chunks (key digest + row digest)."""
 
     __tablename__ = "digest_chunks"
@@ -240,7 +294,11 @@ class DigestChunk(Base):
     data: Mapped[bytes] = mapped_column(LargeBinary)
 
 
-class Decision(Base):
+class _DecisionRegistry(Base, DeclarativeBase):
+    registry = _registry()
+
+
+class Decision(_DecisionRegistry):
     """A decision of the analysis, why it was taken, what it rests on and where it lives in the code."""
 
     __tablename__ = "decisions"
@@ -268,7 +326,11 @@ class Decision(Base):
     updated_at: Mapped[str] = mapped_column(String(40))
 
 
-class Entry(Base):
+class _EntryRegistry(Base, DeclarativeBase):
+    registry = _registry()
+
+
+class Entry(_EntryRegistry):
     """A note, a conclusion or a next step."""
 
     __tablename__ = "entries"
@@ -280,7 +342,11 @@ class Entry(Base):
     created_at: Mapped[str] = mapped_column(String(40), index=True)
 
 
-class Question(Base):
+class _QuestionRegistry(Base, DeclarativeBase):
+    registry = _registry()
+
+
+class Question(_QuestionRegistry):
     """A question put to a domain expert, and its answer."""
 
     __tablename__ = "questions"
@@ -297,7 +363,11 @@ class Question(Base):
     created_at: Mapped[str] = mapped_column(String(40), index=True)
 
 
-class Threat(Base):
+class _ThreatRegistry(Base, DeclarativeBase):
+    registry = _registry()
+
+
+class Threat(_ThreatRegistry):
     """An entry of the threats-to-validity register."""
 
     __tablename__ = "threats"
@@ -311,7 +381,11 @@ class Threat(Base):
     created_at: Mapped[str] = mapped_column(String(40), index=True)
 
 
-class Link(Base):
+class _LinkRegistry(Base, DeclarativeBase):
+    registry = _registry()
+
+
+class Link(_LinkRegistry):
     """A link from a journal record (decision, entry, question, threat) to a variable or a decision.
 
     One table rather than one per pair keeps the journal's queries uniform; referential integrity of the
