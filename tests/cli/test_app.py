@@ -45,3 +45,44 @@ def test_errors_and_help_of_a_pruned_run_name_the_command(study: Path, tmp_path:
     assert _studylog("log", "--help", cwd=tmp_path).returncode == 0
     done = _studylog("log", "chose the median", "--kind", "other", cwd=tmp_path)
     assert done.returncode == 0 and done.stdout.startswith("decision 1 recorded")
+
+
+_PROBE = """
+import functools, gc, sys
+import studylog.cli.journal as journal_cli
+
+original_log, original_register = journal_cli.log, journal_cli.register
+
+@functools.wraps(original_log)
+def log(*args, **kwargs):
+    print("command", gc.isenabled(), gc.get_freeze_count() > 0)
+    return original_log(*args, **kwargs)
+
+def register(app):
+    print("building", gc.isenabled())
+    original_register(app)
+
+journal_cli.log, journal_cli.register = log, register
+from studylog.cli.app import run
+sys.argv = ["studylog", *sys.argv[1:]]
+try:
+    run()
+except SystemExit as exc:
+    print("exit", exc.code)
+print("after", gc.isenabled(), gc.get_freeze_count() > 0)
+"""
+
+
+def _probe(*args: str, cwd: Path) -> list[str]:
+    done = subprocess.run([sys.executable, "-c", _PROBE, *args], cwd=cwd, env=os.environ.copy(),
+                          capture_output=True, text=True, timeout=60, check=True)
+    return [line for line in done.stdout.splitlines() if line.split()[0] in ("building", "command", "exit",
+                                                                             "after")]
+
+
+def test_the_collector_rests_while_a_command_starts_and_runs_with_the_command(study: Path,
+                                                                              tmp_path: Path) -> None:
+    assert _probe("log", "a decision", cwd=tmp_path) == [
+        "building False", "command True True", "exit 0", "after True True"]
+    # a run that stops before its command (a usage error) leaves the collector as it found it
+    assert _probe("log", cwd=tmp_path) == ["building False", "exit 2", "after True False"]
