@@ -45,8 +45,7 @@ LARGEST_BLOCK = 1 << 30
 CHUNK = 1 << 20
 QUOTE = ord('"')
 SCAN_BLOCK = 1 << 23
-# Blocks of the multithreaded whole-file read: large enough that the table has few chunks, small enough
-# that the parser's memory per thread stays small beside the table.
+# Blocks of the whole-file read: the parser's memory stays small beside the table.
 WHOLE_BLOCK = 1 << 20
 
 # Magic numbers of files that are often given a .csv name by mistake.
@@ -392,23 +391,23 @@ def _csv_reader(source: Source, width: int, block: int, handle: _WatchedFile) ->
 
 
 def _csv_whole(source: Source) -> pa.Table | None:
-    """The whole CSV in one multithreaded read, or None when the read meets anything unusual.
+    """The whole CSV in one read, or None when the read meets anything unusual.
 
     A caller that needs every row at once (profile, draft) holds the whole table anyway, so the
     parser's blocks are kept as they come instead of being joined into batches. Any error, a NUL byte
     or an odd number of quotes sends the caller back to the streaming reader, which reads the file
-    again and reports exactly what a check would (with the line; the threaded parser does not number
-    its rows).
+    again and reports exactly what a check would (with the line).
 
     Without a progress callback pyarrow reads the file itself, outside Python, while another thread
-    looks for NUL bytes and counts quotes: the read then never waits for Python's lock, and the
-    caller's thread is free to do other work meanwhile.
+    looks for NUL bytes and counts quotes: the read then never waits for Python's lock, and other
+    threads of the caller work meanwhile. One parsing thread: a multithreaded parse of a file on two
+    cores saved little time for half as much CPU again, which the caller's other threads lacked.
     """
     import pyarrow as pa
 
     width = len(source.columns)
     watch_nul = not source.encoding.startswith(("utf-16", "utf-32"))
-    options = _csv_options(source, width, WHOLE_BLOCK, threads=True)
+    options = _csv_options(source, width, WHOLE_BLOCK, threads=False)
     if source.progress is not None:
         handle = _WatchedFile(source.path, source.size, source.progress, watch_nul=watch_nul)
         with handle:
