@@ -30,7 +30,7 @@ def test_modified_z_on_sorted_values_equals_the_plain_definition(kind: str) -> N
 
 
 @settings(max_examples=200, deadline=None)
-@given(st.lists(st.one_of(st.none(), st.text(alphabet="ab\x00é ", max_size=10)), max_size=40),
+@given(st.lists(st.one_of(st.none(), st.text(alphabet="ab\x00é 09", max_size=18)), max_size=40),
        st.integers(min_value=0, max_value=40))
 def test_distinct_texts_counts_as_arrow_does(values: list[str | None], cut: int) -> None:
     array = pa.array(values, pa.string())
@@ -38,6 +38,12 @@ def test_distinct_texts_counts_as_arrow_does(values: list[str | None], cut: int)
     expected = pc.count_distinct(chunked).as_py()
     assert univariate.distinct_texts(chunked) == expected
     assert univariate.distinct_texts(array) == expected
+
+
+def test_distinct_texts_of_codes_packed_into_one_number() -> None:
+    codes = pa.array([f"V-{i}" for i in range(0, 200_000, 3)] * 2 + ["V-0000000001", "W", None], pa.string())
+    assert univariate._packed_keys([w for w in univariate._text_words(codes)]) is not None
+    assert univariate.distinct_texts(codes) == pc.count_distinct(codes).as_py()
 
 
 def _with_missing(values: np.ndarray, rng: np.random.Generator, share: float) -> np.ndarray:

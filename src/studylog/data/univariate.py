@@ -606,35 +606,41 @@ def date_summary(seconds_sorted: np.ndarray, kind: str) -> dict[str, Any]:
     return out
 
 
-PACKED_BYTES = 7  # texts this short are packed with their length into one 64-bit number
-_LOW_BYTES = np.array([(1 << (8 * k)) - 1 for k in range(PACKED_BYTES + 1)], dtype=np.uint64)
+PACKED_BYTES = 15  # texts this short are told apart by sorting numbers made of their bytes
+_LOW_BYTES = np.array([(1 << (8 * k)) - 1 for k in range(9)], dtype=np.uint64)
 
 
 def distinct_texts(strings: pa.ChunkedArray | pa.Array) -> int:
     """How many distinct texts there are (nulls not counted).
 
-    Texts of at most 7 bytes are equal exactly when their bytes and length packed into one 64-bit
-    number are, and numpy sorts a million such numbers many times faster than a hash table takes a
-    million texts; longer texts go to Arrow's hash table."""
-    chunks = strings.chunks if isinstance(strings, pa.ChunkedArray) else [strings]
-    keys = []
-    for chunk in chunks:
-        if not len(chunk):
-            continue
-        packed = _packed_texts(chunk)
-        if packed is None:
-            unique = pc.unique(strings)
-            return len(unique) - (1 if unique.null_count else 0)
-        keys.append(packed)
-    if not keys:
+    numpy sorts a million 64-bit numbers many times faster than a hash table takes a million texts.
+    A text of at most 15 bytes is three numbers: its first eight bytes, the rest, and its length.
+    Only the bits that differ between some of the texts tell them apart; when those are 64 bits or
+    fewer (codes and numbers written as text: digits differ in four bits of a byte) they make one
+    number per text, equal for equal texts and different for different ones. Other texts go to
+    Arrow's hash table."""
+    chunks = [c for c in (strings.chunks if isinstance(strings, pa.ChunkedArray) else [strings]) if len(c)]
+    parts = [_text_words(chunk) for chunk in chunks]
+    if not parts:
         return 0
-    ordered = np.sort(np.concatenate(keys))
+    if any(part is None for part in parts):
+        return _hashed_distinct(strings)
+    keys = _packed_keys([np.concatenate([part[k] for part in parts if part is not None]) for k in range(3)])
+    if keys is None:
+        return _hashed_distinct(strings)
+    ordered = np.sort(keys)
     return int(np.count_nonzero(ordered[1:] != ordered[:-1])) + (1 if ordered.size else 0)
 
 
-def _packed_texts(chunk: pa.Array) -> np.ndarray | None:
-    """Each non-null text of the chunk as its bytes (little-endian) with its length in the top byte,
-    or None when a text is longer than PACKED_BYTES."""
+def _hashed_distinct(strings: pa.ChunkedArray | pa.Array) -> int:
+    unique = pc.unique(strings)
+    return len(unique) - (1 if unique.null_count else 0)
+
+
+def _text_words(chunk: pa.Array) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
+    """Bytes 0-7 and 8-15 of each non-null text of a chunk as little-endian numbers (zero beyond the
+    text) and the texts' lengths, or None when a text is longer than PACKED_BYTES (or the chunk is
+    not of texts)."""
     if not (pa.types.is_string(chunk.type) or pa.types.is_binary(chunk.type)):
         return None
     _validity, offsets_buffer, data_buffer = chunk.buffers()
@@ -644,34 +650,70 @@ def _packed_texts(chunk: pa.Array) -> np.ndarray | None:
     if chunk.null_count:
         kept = _as_bool(pc.is_valid(chunk))
         starts, lengths = starts[kept], lengths[kept]
-    if not lengths.size:
-        return np.zeros(0, dtype=np.uint64)
-    if int(lengths.max()) > PACKED_BYTES:
+    if lengths.size and int(lengths.max()) > PACKED_BYTES:
         return None
-    # eight bytes from every start, read through a one-byte-stride view of the data padded by eight
     data = np.frombuffer(data_buffer, dtype=np.uint8) if data_buffer is not None else np.zeros(0, np.uint8)
-    padded = np.zeros(data.size + 8, dtype=np.uint8)
+    padded = np.zeros(data.size + 16, dtype=np.uint8)
     padded[:data.size] = data
-    words = np.lib.stride_tricks.as_strided(padded, shape=(data.size + 1, 8), strides=(1, 1), writeable=False)
-    raw = words[starts].view("<u8").ravel()
-    raw &= _LOW_BYTES[lengths]
-    raw |= lengths.astype(np.uint64) << np.uint64(56)
-    return raw
+    # eight bytes from any start: a view of the bytes as 64-bit numbers one byte apart
+    words = np.ndarray(shape=(data.size + 9,), dtype="<u8", buffer=padded, strides=(1,))
+    heads = words[starts]
+    heads &= _LOW_BYTES[np.minimum(lengths, 8)]
+    tails = words[starts + 8]
+    tails &= _LOW_BYTES[np.clip(lengths - 8, 0, 8)]
+    return heads, tails, lengths.astype(np.uint64)
+
+
+def _packed_keys(words: list[np.ndarray]) -> np.ndarray | None:
+    """One number per row made of the bits that vary in ``words`` (unsigned 64-bit), or None when
+    they are more than 64."""
+    spans = []
+    for index, word in enumerate(words):
+        varying = int(np.bitwise_and.reduce(word) ^ np.bitwise_or.reduce(word)) if word.size else 0
+        bit = 0
+        while varying >> bit:
+            if not (varying >> bit) & 1:
+                bit += 1
+                continue
+            width = 0
+            while (varying >> (bit + width)) & 1:
+                width += 1
+            spans.append((index, bit, width))
+            bit += width
+    if sum(width for _index, _bit, width in spans) > 64:
+        return None
+    keys = np.zeros(words[0].size, dtype=np.uint64)
+    position = 0
+    for index, bit, width in spans:
+        part = words[index] >> np.uint64(bit)
+        part &= np.uint64((1 << width) - 1)
+        if position:
+            part <<= np.uint64(position)
+        keys |= part
+        position += width
+    return keys
 
 
 def text_summary(strings: pa.ChunkedArray, missing: np.ndarray) -> dict[str, Any]:
     """Distinct values and lengths, without listing any text (no copy of the column is made)."""
-    present = int((~missing).sum())
+    present = len(strings) - int(np.count_nonzero(missing))
     if present == 0:
         return {"distinct": 0, "length": {"min": None, "max": None, "mean": None}, "repeated": 0}
     # distinct non-null texts, less the distinct texts that are missing (codes, blanks)
     distinct = distinct_texts(strings)
     missing_present = missing & _as_bool(pc.is_valid(strings))
+    lengths = pc.utf8_length(strings)
     if missing_present.any():
         distinct -= distinct_texts(strings.take(pa.array(np.flatnonzero(missing_present))))
-    lengths = to_numpy(pc.cast(pc.utf8_length(strings), pa.int64()), 0)[~missing]
+        kept = to_numpy(pc.cast(lengths, pa.int64()), 0)[~missing]
+        low, high, total = int(kept.min()), int(kept.max()), int(kept.sum())
+    else:
+        # only the nulls are missing, and Arrow's aggregates skip them
+        extremes = pc.min_max(lengths)
+        low, high = extremes["min"].as_py(), extremes["max"].as_py()
+        total = pc.sum(pc.cast(lengths, pa.int64())).as_py()
     return {
         "distinct": distinct,
-        "length": {"min": int(lengths.min()), "max": int(lengths.max()), "mean": float(lengths.mean())},
+        "length": {"min": low, "max": high, "mean": total / present},
         "repeated": present - distinct,
     }
