@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import getpass
 import os
 import subprocess
 from datetime import datetime, timezone
@@ -28,6 +27,8 @@ def author() -> str:
         found = ""
     if found:
         return found
+    import getpass  # here: it brings termios, which a run with STUDYLOG_AUTHOR or git's name never needs
+
     try:
         return getpass.getuser()
     except (KeyError, OSError):
