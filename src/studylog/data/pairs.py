@@ -123,7 +123,8 @@ class RankBase:
         counts = self.group_counts
         dropped = other.missing_rows[self.valid[other.missing_rows]]
         if dropped.size:
-            counts = counts - np.bincount(self.group_row[dropped], minlength=self.groups)
+            counts = counts.copy()
+            np.subtract.at(counts, self.group_row[dropped], 1)
         average = _average_ranks(counts)
         ranks = np.take(average, self.group_row[both])
         return ranks, float((counts * (average * average)).sum())
@@ -200,8 +201,8 @@ def pearson(x: np.ndarray, y: np.ndarray) -> float | None:
     return max(-1.0, min(1.0, _dot(dx, dy) / math.sqrt(sxx * syy)))
 
 
-def pearson_pair(x: RankBase, y: RankBase) -> tuple[float | None, int]:
-    """Pearson's r on the pair's complete cases, and their number.
+def pearson_pair(x: RankBase, y: RankBase, both: np.ndarray | None = None) -> tuple[float | None, int]:
+    """Pearson's r on the pair's complete cases, and their number (``both``: their mask, if known).
 
     Sums over the complete cases are the column's sums less those over the rows where the other
     variable is missing (few, usually): with centred values c (0 where missing),
@@ -209,7 +210,7 @@ def pearson_pair(x: RankBase, y: RankBase) -> tuple[float | None, int]:
     r = (Sxy - Sx Sy / n) / sqrt((Sxx - Sx^2 / n)(Syy - Sy^2 / n)). Centring by each column's mean
     keeps these differences of sums well conditioned.
     """
-    n = int(np.count_nonzero(x.valid & y.valid))
+    n = int(np.count_nonzero(x.valid & y.valid if both is None else both))
     if n < 2:
         return None, n
     x_out = x.centred[y.missing_rows]
@@ -252,9 +253,11 @@ def spearman(x: RankBase, y: RankBase, rows: np.ndarray) -> float | None:
     return max(-1.0, min(1.0, (_dot(rx, ry) - mean_square) / math.sqrt(var_x * var_y)))
 
 
-def spearman_pair(x: RankBase, y: RankBase) -> float | None:
-    """``spearman`` on the rows where both are present, from ``RankBase.pair_ranks``."""
-    both = x.valid & y.valid
+def spearman_pair(x: RankBase, y: RankBase, both: np.ndarray | None = None) -> float | None:
+    """``spearman`` on the rows where both are present (``both``: their mask, if known), from
+    ``RankBase.pair_ranks``."""
+    if both is None:
+        both = x.valid & y.valid
     rx, sxx = x.pair_ranks(y, both)
     ry, syy = y.pair_ranks(x, both)
     n = rx.size
@@ -291,12 +294,13 @@ def correlations(columns: Sequence[NumericColumn], strong: float = DEFAULT_STRON
 
     def measure(job: tuple[NumericColumn, NumericColumn]) -> dict[str, Any]:
         a, b = job
-        r, n = pearson_pair(a.base, b.base)
+        both = a.base.valid & b.base.valid
+        r, n = pearson_pair(a.base, b.base, both)
         entry: dict[str, Any] = {"a": a.name, "b": b.name, "pearson": None, "spearman": None, "n": n,
                                  "strong": False}
         if n >= MIN_PAIR_CASES:
             entry["pearson"] = r
-            entry["spearman"] = spearman_pair(a.base, b.base)
+            entry["spearman"] = spearman_pair(a.base, b.base, both)
         return entry
 
     pairs.extend(mapper(measure, jobs))
