@@ -271,6 +271,8 @@ def spearman_pair(x: RankBase, y: RankBase, both: np.ndarray | None = None) -> f
 def compact_groups(codes: np.ndarray, levels: int) -> tuple[np.ndarray, int]:
     """Level indices renumbered 0..k-1 over the levels that occur (no sort of the rows)."""
     seen = np.flatnonzero(np.bincount(codes, minlength=levels))
+    if seen.size == levels:
+        return codes, levels  # every level occurs: the numbering stands
     renumber = np.full(max(levels, 1), -1, dtype=np.int64)
     renumber[seen] = np.arange(seen.size)
     return renumber[codes], int(seen.size)
