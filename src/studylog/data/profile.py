@@ -104,7 +104,10 @@ def _profile_column(name: str, strings: pa.ChunkedArray, spec: VariableSpec,
             invalid |= fractional
             values[fractional] = np.nan
         column.base = pairs.RankBase.of(values, integer=kind == "integer", reuse=True)
-        entry.update(univariate.numeric_summary(column.base.sorted_values, kind == "integer"))
+        # the tie groups that occur are the runs of equal sorted values (counting whole numbers
+        # makes empty groups too)
+        counts = column.base.group_counts
+        entry.update(univariate.numeric_summary(column.base.sorted_values, kind == "integer", counts[counts > 0]))
         entry["invalid"] = int(np.count_nonzero(invalid))
         entry["invalid_examples"] = univariate.invalid_examples(strings, invalid, masked)
         entry["impossible"] = _impossible(column.base.sorted_values, spec)

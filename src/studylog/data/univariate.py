@@ -452,8 +452,9 @@ def invalid_examples(strings: pa.ChunkedArray, invalid: np.ndarray, masked: bool
 # summaries
 
 
-def numeric_summary(sorted_values: np.ndarray, integer: bool) -> dict[str, Any]:
-    """Five-number summary, moments, fences, modified z-score, histogram, near-zero variance, normality."""
+def numeric_summary(sorted_values: np.ndarray, integer: bool, counts: np.ndarray | None = None) -> dict[str, Any]:
+    """Five-number summary, moments, fences, modified z-score, histogram, near-zero variance, normality.
+    ``counts``: ``run_lengths(sorted_values)`` when the caller has them."""
     n = sorted_values.size
     out: dict[str, Any] = {
         "distinct": 0, "min": None, "q1": None, "median": None, "q3": None, "max": None,
@@ -465,7 +466,7 @@ def numeric_summary(sorted_values: np.ndarray, integer: bool) -> dict[str, Any]:
     if n == 0:
         return out
     q1, median, q3 = quantile_type7(sorted_values, np.array([0.25, 0.5, 0.75])).tolist()
-    counts = run_lengths(sorted_values)
+    counts = run_lengths(sorted_values) if counts is None else counts
     out.update(
         distinct=int(counts.size), min=float(sorted_values[0]), q1=q1, median=median, q3=q3,
         max=float(sorted_values[-1]),
