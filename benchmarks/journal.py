@@ -5,6 +5,11 @@ and inserts one row. Both are run the same number of times, interleaved (so that
 the machine), each as a fresh ``python`` process; the medians are compared. The goal: ``studylog log``
 within 1.2 x the floor and under 0.3 s.
 
+Both run from compiled bytecode, as an installed program does: the environment may set
+``PYTHONDONTWRITEBYTECODE`` (which would recompile every studylog module on each start), so it is cleared
+for the child processes, and the warm-up runs write the bytecode to a pycache folder in the temporary
+directory (``PYTHONPYCACHEPREFIX``), not beside the sources.
+
 Also reported, to see where the time goes: a bare interpreter, importing the command line (in a fresh
 process), building typer's command tree in process, and ``studylog log`` in a git work tree (one
 ``git status`` more).
