@@ -201,8 +201,8 @@ def _leakage_measure(column: _Column, target: _Column, target_levels: pairs.Leve
     if column is target or column.spec.role in ("identifier", "excluded", "target") or target_levels is None:
         return None, None
     if column.base is not None:
-        rows = np.flatnonzero(column.base.valid & (target_levels.codes >= 0))
-        if rows.size >= pairs.MIN_PAIR_CASES:
+        rows = column.base.valid & (target_levels.codes >= 0)
+        if np.count_nonzero(rows) >= pairs.MIN_PAIR_CASES:
             groups, k = pairs.compact_groups(target_levels.codes[rows], target_levels.levels)
             result = significance.anova(groups, column.base.centred[rows], k)
             return "eta_squared", (result["eta_squared"] if result else None)
