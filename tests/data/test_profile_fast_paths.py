@@ -123,3 +123,16 @@ def test_missing_found_on_the_levels_equals_missing_found_on_the_rows(values: li
 def test_a_column_that_reads_as_numbers_has_no_blanks(text: str) -> None:
     # find_missing(blank_free=True) rests on Arrow refusing these as numbers
     assert univariate.float_values(pa.chunked_array([pa.array(["1.5", text])])) is None
+
+
+@settings(max_examples=100, deadline=None)
+@given(st.lists(st.one_of(st.none(), st.integers(-5, 5)), max_size=30), st.integers(0, 30), st.integers(0, 5))
+def test_to_numpy_fills_nulls_across_chunks_and_slices(values: list[int | None], cut: int, skip: int) -> None:
+    for kind, fill in ((pa.float64(), np.nan), (pa.int32(), -1), (pa.bool_(), False)):
+        array = pa.array([None if v is None else (v > 0 if kind == pa.bool_() else v) for v in values], kind)
+        chunked = pa.chunked_array([array.slice(0, cut), array.slice(cut)], kind)
+        for arrow in (chunked, array.slice(min(skip, len(array)))):
+            expected = [fill if v is None else v for v in arrow.to_pylist()]
+            found = univariate.to_numpy(arrow, fill)
+            assert found.flags.writeable and found.dtype == (bool if kind == pa.bool_() else found.dtype)
+            assert np.array_equal(found, np.array(expected, dtype=found.dtype), equal_nan=kind == pa.float64())

@@ -288,25 +288,39 @@ def to_numpy(array: pa.ChunkedArray | pa.Array, fill: Any) -> np.ndarray:
     """A numeric or boolean Arrow array as a new, writable numpy array, nulls as ``fill``.
 
     Read from the Arrow buffers directly: pyarrow's own ``to_numpy`` imports pandas, half a second of a
-    command's start-up."""
-    if isinstance(array, pa.ChunkedArray):
-        parts = [to_numpy(chunk, fill) for chunk in array.chunks]
-        if parts:
-            return np.concatenate(parts)
-        return np.zeros(0, dtype=bool if pa.types.is_boolean(array.type) else _NUMPY_TYPES[array.type])
+    command's start-up. The values of all chunks are copied once, then the nulls set."""
+    if pa.types.is_boolean(array.type):
+        return _bools(array, fill)
+    dtype = _NUMPY_TYPES[array.type]
+    chunks = array.chunks if isinstance(array, pa.ChunkedArray) else [array]
+    parts = [_values(chunk, dtype) for chunk in chunks]
+    out = np.concatenate(parts) if parts else np.zeros(0, dtype=dtype)
+    if array.null_count:
+        out[_bools(pc.is_null(array), False)] = fill
+    return out
+
+
+def _values(chunk: pa.Array, dtype: Any) -> np.ndarray:
+    """A view of a numeric chunk's values (any value where null)."""
+    data = chunk.buffers()[1]
+    if data is None:
+        return np.zeros(len(chunk), dtype=dtype)
+    return np.frombuffer(data, dtype=dtype)[chunk.offset:chunk.offset + len(chunk)]
+
+
+def _bools(array: pa.ChunkedArray | pa.Array, fill: bool) -> np.ndarray:
     if array.null_count:
         array = pc.fill_null(array, fill)
+    if isinstance(array, pa.ChunkedArray):
+        if not array.num_chunks:
+            return np.zeros(0, dtype=bool)
+        array = array.chunk(0) if array.num_chunks == 1 else array.combine_chunks()
     data = array.buffers()[1]
-    start, stop = array.offset, array.offset + len(array)
-    if pa.types.is_boolean(array.type):
-        if data is None:
-            return np.zeros(len(array), dtype=bool)
-        bits = np.unpackbits(np.frombuffer(data, dtype=np.uint8), bitorder="little")
-        return bits[start:stop].astype(bool)
-    dtype = _NUMPY_TYPES[array.type]
     if data is None:
-        return np.zeros(len(array), dtype=dtype)
-    return np.frombuffer(data, dtype=dtype)[start:stop].copy()
+        return np.zeros(len(array), dtype=bool)
+    bits = np.unpackbits(np.frombuffer(data, dtype=np.uint8), count=(array.offset + len(array) + 7) // 8 * 8,
+                         bitorder="little")
+    return bits[array.offset:array.offset + len(array)].view(bool)
 
 
 def _as_bool(array: pa.ChunkedArray | pa.Array) -> np.ndarray:
