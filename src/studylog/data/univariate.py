@@ -634,13 +634,21 @@ def distinct_texts(strings: pa.ChunkedArray | pa.Array) -> int:
     fewer (codes and numbers written as text: digits differ in four bits of a byte) they make one
     number per text, equal for equal texts and different for different ones. Other texts go to
     Arrow's hash table."""
-    chunks = [c for c in (strings.chunks if isinstance(strings, pa.ChunkedArray) else [strings]) if len(c)]
-    parts = [_text_words(chunk) for chunk in chunks]
-    if not parts:
-        return 0
-    if any(part is None for part in parts):
+    # one chunk: the work is then a few calls on whole columns
+    try:
+        whole = strings.combine_chunks() if isinstance(strings, pa.ChunkedArray) else strings
+    except pa.ArrowException:  # more text than one chunk's 32-bit offsets reach
         return _hashed_distinct(strings)
-    keys = _packed_keys([np.concatenate([part[k] for part in parts if part is not None]) for k in range(3)])
+    if not len(whole):
+        return 0
+    words = _text_words(whole)
+    if words is None:
+        return _hashed_distinct(strings)
+    heads, tails, lengths = words
+    if lengths.size and int(lengths.max()) <= 7:
+        keys = heads | (lengths << np.uint64(56))  # the bytes and the length fit as they are
+    else:
+        keys = _packed_keys([heads, tails, lengths])
     if keys is None:
         return _hashed_distinct(strings)
     ordered = np.sort(keys)
