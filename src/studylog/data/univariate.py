@@ -673,17 +673,22 @@ def _text_words(chunk: pa.Array) -> tuple[np.ndarray, np.ndarray, np.ndarray] | 
     if chunk.null_count:
         kept = _as_bool(pc.is_valid(chunk))
         starts, lengths = starts[kept], lengths[kept]
-    if lengths.size and int(lengths.max()) > PACKED_BYTES:
+    longest = int(lengths.max()) if lengths.size else 0
+    if longest > PACKED_BYTES:
         return None
     data = np.frombuffer(data_buffer, dtype=np.uint8) if data_buffer is not None else np.zeros(0, np.uint8)
     padded = np.zeros(data.size + 16, dtype=np.uint8)
     padded[:data.size] = data
     # eight bytes from any start: a view of the bytes as 64-bit numbers one byte apart
     words = np.ndarray(shape=(data.size + 9,), dtype="<u8", buffer=padded, strides=(1,))
+    starts = starts.astype(np.intp)
     heads = words[starts]
-    heads &= _LOW_BYTES[np.minimum(lengths, 8)]
-    tails = words[starts + 8]
-    tails &= _LOW_BYTES[np.clip(lengths - 8, 0, 8)]
+    heads &= _LOW_BYTES[lengths if longest <= 8 else np.minimum(lengths, 8)]
+    if longest <= 8:
+        tails = np.zeros(lengths.size, dtype=np.uint64)
+    else:
+        tails = words[starts + 8]
+        tails &= _LOW_BYTES[np.clip(lengths - 8, 0, 8)]
     return heads, tails, lengths.astype(np.uint64)
 
 
