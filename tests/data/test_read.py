@@ -375,4 +375,25 @@ def test_the_scan_finds_what_the_watched_file_finds(tmp_path: Path, data: bytes,
     with watched:
         while watched.read(1 << 16):
             pass
-    assert read._scan_bytes(path, watch_nul=True) == (watched.nul_at, watched.quotes)
+    assert read._scan_bytes(path, watch_nul=True) == (watched.nul_at, watched.quotes, True)
+
+
+@pytest.mark.parametrize(
+    ("data", "valid"),
+    [
+        (b"a,b\n1,2\n", True),
+        ("a,b\ncafé,naïve ☕\n".encode(), True),  # characters cut by the ends of 4-byte blocks
+        (b"a,b\n\xc3\xa9,\xff\n", False),
+        (b"a,b\n1,\xed\xa0\x80\n", False),  # an encoded surrogate
+        (b"a,b\n1,\xe2\x98", False),  # the file ends inside a character
+    ],
+)
+def test_the_scan_validates_utf8_as_the_parser_does(tmp_path: Path, data: bytes, valid: bool,
+                                                   monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setattr(read, "SCAN_BLOCK", 4)
+    path = write(tmp_path, "x.csv", data)
+    assert read._scan_bytes(path, watch_nul=True, check_utf8=True)[2] is valid
+    if not valid:
+        with pytest.raises(InputFileError) as caught:
+            read_table(path)
+        assert "not valid utf-8" in caught.value.message
