@@ -294,6 +294,9 @@ def profile_table(
             grouping = _as_levels(by_name[by], table.column(by))
             if grouping.levels > MAX_GROUPS:
                 raise UsageError(f"--by {by}: {grouping.levels} groups; at most {MAX_GROUPS} can be compared")
+        # the target's measures of the numeric inputs need no pair: queued before the pairs
+        leak_numeric = {c.name: pool.submit(_leakage_measure, c, by_name[target], target_levels, {})
+                        for c in columns if target is not None and c.base is not None}
         correlation = pairs.correlations(numeric, strong, pool.map)
         association_list = list(associated)
         document: dict[str, Any] = {
@@ -310,8 +313,11 @@ def profile_table(
         if target is not None:
             document["target"] = target_section
             by_pair = {(a["a"], a["b"]): a for a in association_list}
-            measures = list(pool.map(
-                lambda column: _leakage_measure(column, by_name[target], target_levels, by_pair), columns))
+            others = [c for c in columns if c.name not in leak_numeric]
+            found = dict(zip((c.name for c in others), pool.map(
+                lambda column: _leakage_measure(column, by_name[target], target_levels, by_pair), others)))
+            measures = [leak_numeric[c.name].result() if c.name in leak_numeric else found[c.name]
+                        for c in columns]
             document["leakage"] = _leakage(columns, by_name[target], target_levels, correlation["pairs"],
                                            availability or {}, measures)
         if grouping is not None:
