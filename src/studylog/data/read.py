@@ -100,7 +100,12 @@ def _whole(source: Source) -> pa.Table:
     if source.format in ("csv", "tsv"):
         table = _csv_whole(source)
         if table is not None:
-            return table
+            return table.slice(1).rename_columns(source.columns)
+    return _streamed_whole(source)
+
+
+def _streamed_whole(source: Source) -> pa.Table:
+    import pyarrow as pa
 
     # positional names while concatenating: the file's own names may be anything (quotes, dots, ...)
     names = [f"c{i}" for i in range(len(source.columns))]
@@ -118,7 +123,12 @@ def open_source(
     progress: Progress | None = None,
 ) -> Source:
     """Open a data file, check that it is a table with a header and at least one data row."""
-    file = Path(path)
+    return _open(Path(path), encoding, sheet, batch_rows, progress, probe=True)
+
+
+def _open(file: Path, encoding: str | None, sheet: str | None, batch_rows: int, progress: Progress | None,
+          *, probe: bool) -> Source:
+    """``open_source``; without ``probe`` a CSV's header is not read (its columns are only counted)."""
     if not file.exists():
         raise InputFileError(str(file), "no such file")
     if not file.is_file():
@@ -140,7 +150,7 @@ def open_source(
     if size == 0:
         raise InputFileError(str(file), "the file is empty")
     if suffix in CSV_EXTENSIONS:
-        return _open_csv(file, CSV_EXTENSIONS[suffix], size, encoding, batch_rows, progress)
+        return _open_csv(file, CSV_EXTENSIONS[suffix], size, encoding, batch_rows, progress, probe)
     from studylog.data import read_columnar
 
     if suffix in PARQUET_EXTENSIONS:
@@ -159,7 +169,22 @@ def read_table(
     batch_rows: int = 65_536,
     progress: Progress | None = None,
 ) -> pa.Table:
-    """The whole file as one table of string columns."""
+    """The whole file as one table of string columns.
+
+    A CSV is read at once and its header taken from the table (the check of the header and of a data
+    row is the same as ``open_source``'s); anything unusual, and every other format, takes the way of
+    ``open_source``, whose errors are then the same as a check's."""
+    file = Path(path)
+    if progress is None and file.suffix.lower() in CSV_EXTENSIONS:
+        source = _open(file, encoding, sheet, batch_rows, progress, probe=False)
+        table = _csv_whole(source)
+        if table is not None:
+            header = [table.column(i)[0].as_py() for i in range(table.num_columns)]
+            source.columns = check_names(file, header, 1)
+            if table.num_rows < 2:
+                raise InputFileError(str(file), "no data rows (the file holds a header only)")
+            return table.slice(1).rename_columns(source.columns)
+        return _streamed_whole(open_source(file, encoding=encoding, sheet=sheet, batch_rows=batch_rows))
     source = open_source(path, encoding=encoding, sheet=sheet, batch_rows=batch_rows, progress=progress)
     return source.table()
 
@@ -321,7 +346,8 @@ def _detect_delimiter(text: str, prefer: str) -> str:
 
 
 def _open_csv(
-    path: Path, kind: str, size: int, encoding: str | None, batch_rows: int, progress: Progress | None
+    path: Path, kind: str, size: int, encoding: str | None, batch_rows: int, progress: Progress | None,
+    probe: bool = True,
 ) -> Source:
     codec = encoding or "utf-8"
     raw, text = _sample_text(path, codec)
@@ -349,6 +375,10 @@ def _open_csv(
     )
     first = text.split("\n", 1)[0]
     width = first.count(source.delimiter or ",") + 1
+    if not probe:
+        source.columns = [""] * width  # named from the header once it is read
+        source.progress = progress
+        return source
     header, has_data = _probe_csv(source, width)
     source.columns = check_names(path, header, 1)
     if not has_data:
@@ -391,7 +421,7 @@ def _csv_reader(source: Source, width: int, block: int, handle: _WatchedFile) ->
 
 
 def _csv_whole(source: Source) -> pa.Table | None:
-    """The whole CSV in one read, or None when the read meets anything unusual.
+    """The whole CSV in one read, header row first, or None when the read meets anything unusual.
 
     A caller that needs every row at once (profile, draft) holds the whole table anyway, so the
     parser's blocks are kept as they come instead of being joined into batches. Any error, a NUL byte
@@ -429,7 +459,7 @@ def _csv_whole(source: Source) -> pa.Table | None:
             nul_at, quotes, valid = scanned.result()
     if table is None or nul_at is not None or quotes % 2 or not valid or table.num_columns != width:
         return None
-    return table.slice(1).rename_columns(source.columns)
+    return table
 
 
 def _read_whole(handle: Any, options: dict[str, Any]) -> pa.Table | None:
