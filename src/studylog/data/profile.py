@@ -115,7 +115,8 @@ def _profile_column(name: str, strings: pa.ChunkedArray, spec: VariableSpec,
             for key in ("min", "max"):
                 entry[key] = None
     elif kind in ("date", "datetime"):
-        seconds = univariate.parse_dates(strings, spec, kind, dates)
+        seconds = univariate.parse_dates(strings, spec, kind, dates,
+                                         iso_tried=univariate.date_format(spec, kind) == "%Y-%m-%d")
         seconds[missing.mask] = np.nan
         invalid = ~missing.mask & np.isnan(seconds)
         entry.update(univariate.date_summary(np.sort(seconds[~np.isnan(seconds)]), kind))

@@ -456,7 +456,10 @@ def _csv_whole(source: Source) -> pa.Table | None:
                     table = _read_whole(native, options)
             except OSError:
                 table = None
-            nul_at, quotes, valid = scanned.result()
+            try:
+                nul_at, quotes, valid = scanned.result()
+            except OSError:
+                return None
     if table is None or nul_at is not None or quotes % 2 or not valid or table.num_columns != width:
         return None
     return table

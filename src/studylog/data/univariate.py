@@ -418,11 +418,11 @@ def date_format(spec: VariableSpec | None, kind: str) -> str | None:
 
 
 def parse_dates(strings: pa.ChunkedArray, spec: VariableSpec | None, kind: str,
-                parsed: pa.ChunkedArray | None = None) -> np.ndarray:
+                parsed: pa.ChunkedArray | None = None, *, iso_tried: bool = False) -> np.ndarray:
     """Seconds since 1970 as float (NaN where missing or not a valid date in the stated format).
-    ``parsed``: ``iso_dates(strings)`` when the caller has it."""
+    ``parsed``: ``iso_dates(strings)`` when the caller has it (``iso_tried``: it gave None)."""
     fmt = date_format(spec, kind)
-    if parsed is None and fmt == "%Y-%m-%d":
+    if parsed is None and fmt == "%Y-%m-%d" and not iso_tried:
         parsed = iso_dates(strings)
     if parsed is None and fmt is not None:
         parsed = pc.strptime(strings, format=fmt, unit="s", error_is_null=True)
