@@ -110,12 +110,12 @@ def test_missing_found_on_the_levels_equals_missing_found_on_the_rows(values: li
     strings = pa.chunked_array([pa.array(values, pa.string())])
     plain = univariate.find_missing(strings, codes)
     encoded = univariate.Encoded.of(strings)
-    found, level_codes = univariate.find_missing_encoded(encoded, codes)
+    found, level_codes, level_counts = univariate.find_missing_encoded(encoded, codes)
     assert np.array_equal(found.mask, plain.mask)
     assert (found.blank, found.codes) == (plain.blank, plain.codes)
     levels, counts, expected_codes = univariate.level_counts(strings, plain.mask)
     assert np.array_equal(level_codes, expected_codes)
-    found_levels, found_counts = univariate.level_counts_encoded(encoded, level_codes)
+    found_levels, found_counts = univariate.level_counts_encoded(encoded, level_counts)
     assert found_levels == levels and np.array_equal(found_counts, counts)
 
 

@@ -270,12 +270,19 @@ def spearman_pair(x: RankBase, y: RankBase, both: np.ndarray | None = None) -> f
 
 def compact_groups(codes: np.ndarray, levels: int) -> tuple[np.ndarray, int]:
     """Level indices renumbered 0..k-1 over the levels that occur (no sort of the rows)."""
-    seen = np.flatnonzero(np.bincount(codes, minlength=levels))
+    groups, k, _sizes = compact_groups_counted(codes, levels)
+    return groups, k
+
+
+def compact_groups_counted(codes: np.ndarray, levels: int) -> tuple[np.ndarray, int, np.ndarray]:
+    """``compact_groups``, and the rows in each group."""
+    counts = np.bincount(codes, minlength=levels)
+    seen = np.flatnonzero(counts)
     if seen.size == levels:
-        return codes, levels  # every level occurs: the numbering stands
+        return codes, levels, counts  # every level occurs: the numbering stands
     renumber = np.full(max(levels, 1), -1, dtype=np.int64)
     renumber[seen] = np.arange(seen.size)
-    return renumber[codes], int(seen.size)
+    return renumber[codes], int(seen.size), counts[seen]
 
 
 @dataclass
@@ -395,9 +402,9 @@ def group_comparisons(by: LevelColumn, numeric: Sequence[NumericColumn],
         entry: dict[str, Any] = {"variable": column.name, "n": int(rows.size), "anova": None,
                                  "kruskal_wallis": None}
         if rows.size >= 3:
-            groups, k = compact_groups(by.codes[rows], by.levels)
+            groups, k, sizes = compact_groups_counted(by.codes[rows], by.levels)
             entry["groups"] = k
-            entry["anova"] = significance.anova(groups, column.base.centred[rows], k)
+            entry["anova"] = significance.anova(groups, column.base.centred[rows], k, sizes)
             ranks, tie_sum = column.base.ranks(rows)
             entry["kruskal_wallis"] = significance.kruskal_wallis(groups, ranks, k, tie_sum)
         return entry

@@ -75,12 +75,12 @@ def _profile_column(name: str, strings: pa.ChunkedArray, spec: VariableSpec,
     declared = [code.code for code in spec.missing_codes]
     extra = [code for code in inferred_codes if code not in declared]
     kind = spec.type
-    floats = dates = encoded = level_codes = None
+    floats = dates = encoded = level_codes = level_counts = None
     # blanks and missing codes found once per distinct level, or not looked for in a column that
     # reads as numbers throughout
     if kind in LEVEL_TYPES or kind == "boolean":
         encoded = univariate.Encoded.of(strings)
-        missing, level_codes = univariate.find_missing_encoded(encoded, declared + extra)
+        missing, level_codes, level_counts = univariate.find_missing_encoded(encoded, declared + extra)
     else:
         if kind in NUMERIC_TYPES:
             floats = univariate.float_values(strings)
@@ -122,8 +122,8 @@ def _profile_column(name: str, strings: pa.ChunkedArray, spec: VariableSpec,
         entry.update(univariate.date_summary(np.sort(seconds[~np.isnan(seconds)]), kind))
         entry["invalid"] = int(np.count_nonzero(invalid))
         entry["invalid_examples"] = univariate.invalid_examples(strings, invalid, masked)
-    elif encoded is not None and level_codes is not None:
-        levels, counts = univariate.level_counts_encoded(encoded, level_codes)
+    elif encoded is not None and level_codes is not None and level_counts is not None:
+        levels, counts = univariate.level_counts_encoded(encoded, level_counts)
         entry.update(univariate.level_summary(levels, counts, masked, kind))
         if kind == "boolean" and (spec.true_values or spec.false_values):
             truth = np.isin(np.asarray(levels, dtype=object), list(spec.true_values))
@@ -204,8 +204,8 @@ def _leakage_measure(column: _Column, target: _Column, target_levels: pairs.Leve
     if column.base is not None:
         rows = column.base.valid & (target_levels.codes >= 0)
         if np.count_nonzero(rows) >= pairs.MIN_PAIR_CASES:
-            groups, k = pairs.compact_groups(target_levels.codes[rows], target_levels.levels)
-            result = significance.anova(groups, column.base.centred[rows], k)
+            groups, k, sizes = pairs.compact_groups_counted(target_levels.codes[rows], target_levels.levels)
+            result = significance.anova(groups, column.base.centred[rows], k, sizes)
             return "eta_squared", (result["eta_squared"] if result else None)
     elif column.levels is not None:
         found = associated.get((column.name, target.name)) if target_levels is target.levels else None

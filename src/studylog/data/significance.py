@@ -68,10 +68,11 @@ def dagostino_pearson_from_moments(count: int, b1: float, b2: float) -> tuple[fl
     return k2, _chi2_sf(k2, 2)
 
 
-def anova(groups: np.ndarray, values: np.ndarray, k: int) -> dict[str, Any] | None:
-    """One-way ANOVA of ``values`` by integer group ``groups`` (0..k-1): F, p, eta^2."""
+def anova(groups: np.ndarray, values: np.ndarray, k: int, sizes: np.ndarray | None = None) -> dict[str, Any] | None:
+    """One-way ANOVA of ``values`` by integer group ``groups`` (0..k-1): F, p, eta^2. ``sizes``: the
+    rows in each group, when the caller has counted them."""
     n = values.size
-    sizes = np.bincount(groups, minlength=k).astype(float)
+    sizes = (np.bincount(groups, minlength=k) if sizes is None else sizes).astype(float)
     used = sizes > 0
     groups_used = int(used.sum())
     if groups_used < 2 or n - groups_used < 1:

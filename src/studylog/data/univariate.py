@@ -358,9 +358,9 @@ class Encoded:
         return cls(encoded.dictionary, to_numpy(encoded.indices, -1).astype(np.int64))
 
 
-def find_missing_encoded(encoded: Encoded, codes: Sequence[str]) -> tuple[Missing, np.ndarray]:
+def find_missing_encoded(encoded: Encoded, codes: Sequence[str]) -> tuple[Missing, np.ndarray, np.ndarray]:
     """``find_missing`` of an encoded column: each distinct text is tested once. Also each row's
-    level index with -1 where missing."""
+    level index with -1 where missing, and the rows of each level that are not missing."""
     dictionary, indices = encoded.dictionary, encoded.indices
     present = indices >= 0
     per_level = np.bincount(indices[present], minlength=len(dictionary))
@@ -374,7 +374,8 @@ def find_missing_encoded(encoded: Encoded, codes: Sequence[str]) -> tuple[Missin
     # a null's index, -1, reads the last entry: missing
     mask = np.append(missing_level, True)[indices]
     blanks = indices.size - int(np.count_nonzero(present)) + int(per_level[blank].sum())
-    return Missing(mask=mask, blank=blanks, codes=counted), np.where(mask, -1, indices)
+    present_counts = np.where(missing_level, 0, per_level)
+    return Missing(mask=mask, blank=blanks, codes=counted), np.where(mask, -1, indices), present_counts
 
 
 def _writable_floats(array: pa.ChunkedArray | pa.Array) -> np.ndarray:
@@ -512,10 +513,9 @@ def level_counts(strings: pa.ChunkedArray, missing: np.ndarray) -> tuple[list[st
     return levels, counts, codes
 
 
-def level_counts_encoded(encoded: Encoded, codes: np.ndarray) -> tuple[list[str], np.ndarray]:
-    """``level_counts`` of an encoded column, given its level indices with -1 where missing."""
-    levels = encoded.dictionary.to_pylist()
-    return levels, np.bincount(codes[codes >= 0], minlength=len(levels))
+def level_counts_encoded(encoded: Encoded, counts: np.ndarray) -> tuple[list[str], np.ndarray]:
+    """``level_counts`` of an encoded column, given the counts ``find_missing_encoded`` gives."""
+    return encoded.dictionary.to_pylist(), counts
 
 
 def variants(levels: Sequence[str], counts: np.ndarray) -> list[list[str]]:
