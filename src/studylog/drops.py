@@ -78,10 +78,10 @@ def check_file(
     progress: Callable[[int, int], None] | None = None,
 ) -> CheckOutcome:
     """Check a data file against the dictionary (now, or a named ``version``) and record the drop."""
-    from studylog.data.check import Checker, prefer_jemalloc
+    from studylog.data.check import Checker
     from studylog.data.read import file_facts, open_source
     from studylog.data.rules import plan
-    from studylog.profiling import arrow_without_pandas
+    from studylog.data.runtime import arrow_without_pandas, prefer_jemalloc
 
     prefer_jemalloc()
     arrow_without_pandas()

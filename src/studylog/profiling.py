@@ -25,35 +25,6 @@ SAMPLE_STRETCHES = 20
 MATCH_SHARE = 0.5
 
 
-class _NoPandas:
-    """An import finder that reports pandas missing (see ``arrow_without_pandas``)."""
-
-    def find_spec(self, name: str, path: Any = None, target: Any = None) -> None:
-        if name == "pandas" or name.startswith("pandas."):
-            raise ImportError("pandas is not needed to profile")
-
-
-def arrow_without_pandas() -> None:
-    """Keep pyarrow from importing pandas, a fifth of a second of every profile.
-
-    pyarrow looks for pandas the first time it converts Python values (any ``pa.array`` or scalar
-    argument) and would import it then; profiling hands it no pandas objects. pyarrow is let to find
-    pandas absent once, and asks again (and imports it) only when pandas objects are really wanted.
-    """
-    import sys
-
-    if "pandas" in sys.modules:
-        return
-    import pyarrow as pa
-
-    finder = _NoPandas()
-    sys.meta_path.insert(0, finder)
-    try:
-        pa.array([0])
-    finally:
-        sys.meta_path.remove(finder)
-
-
 @dataclass
 class Dictionary:
     """What the study knows about the file: its table's spec, availability, the study's target."""
@@ -190,6 +161,7 @@ def profile_file(
 
 def _read(path: Path, encoding: str | None, sheet: str | None) -> Any:
     from studylog.data.read import read_table
+    from studylog.data.runtime import arrow_without_pandas
 
     arrow_without_pandas()
     return read_table(path, encoding=encoding, sheet=sheet)

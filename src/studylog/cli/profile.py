@@ -48,8 +48,10 @@ def profile(
     from studylog.cli.common import location
     from studylog.errors import NoStudyFound
 
-    _reuse_freed_memory()
-    _arrow_memory_pool()
+    from studylog.data.runtime import prefer_jemalloc, reuse_freed_memory
+
+    reuse_freed_memory()
+    prefer_jemalloc()
     try:
         where = location()
     except NoStudyFound:
@@ -65,42 +67,6 @@ def profile(
 
 
 profile.__doc__ = f"{profile.__doc__}\n\n{DEFINITIONS}"
-
-# glibc's mallopt parameters
-M_TRIM_THRESHOLD = -1
-M_MMAP_THRESHOLD = -3
-
-
-def _reuse_freed_memory() -> None:
-    """Let glibc keep the memory of freed arrays for the next ones.
-
-    Profiling makes and frees thousands of column-sized numpy arrays; by default glibc hands each one
-    of some megabytes back to the system and maps it afresh for the next, and the kernel's work of
-    unmapping, mapping and zeroing those pages took as much CPU as a third of the profile. Arrays up
-    to 32 MB are then served from memory already held, which this short-lived process keeps. Other C
-    libraries have no such call and keep their default."""
-    try:
-        import ctypes
-
-        libc = ctypes.CDLL("libc.so.6")
-        libc.mallopt(M_MMAP_THRESHOLD, 32 << 20)
-        libc.mallopt(M_TRIM_THRESHOLD, 1 << 30)
-    except (OSError, AttributeError):
-        pass
-
-
-def _arrow_memory_pool() -> None:
-    """Arrow's buffers from jemalloc (else the system's allocator) rather than its default, mimalloc:
-    mimalloc hands freed pages back to the system within milliseconds, and profiling frees and
-    allocates column-sized buffers all the time, so the kernel's share of the profile's CPU was
-    halved."""
-    import pyarrow as pa
-
-    try:
-        pa.set_memory_pool(pa.jemalloc_memory_pool())
-    except NotImplementedError:
-        pa.set_memory_pool(pa.system_memory_pool())
-
 
 def _num(value: Any) -> str:
     """A number for the screen: whole numbers as they are, else four significant digits, and no

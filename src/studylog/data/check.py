@@ -365,21 +365,6 @@ class Checker:
         return CheckResult(self.plan.table, self.rows, self.plan.columns, findings, self.plan)
 
 
-def prefer_jemalloc() -> None:
-    """Make jemalloc Arrow's allocator for this process, where pyarrow is built with it.
-
-    The check allocates and frees the same few sizes of buffer for every batch; jemalloc keeps them for
-    reuse where the default allocator hands pages back and faults them in again, which on the machines
-    measured cost about a fifth of a second of system time per million rows and some peak memory.
-    """
-    import pyarrow as pa
-
-    try:
-        pa.set_memory_pool(pa.jemalloc_memory_pool())
-    except (NotImplementedError, pa.ArrowException):  # a pyarrow built without jemalloc
-        pass
-
-
 def check(
     spec: TableSpec,
     columns: Sequence[str],

@@ -1,0 +1,76 @@
+"""Process-wide settings of the data libraries, for the commands that read whole files.
+
+Each is a choice for the whole process, made by the command that needs it (``check``, ``profile``),
+never on import: a notebook using the Python API keeps its own settings.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+# glibc's mallopt parameters
+M_TRIM_THRESHOLD = -1
+M_MMAP_THRESHOLD = -3
+
+
+class _NoPandas:
+    """An import finder that reports pandas missing (see ``arrow_without_pandas``)."""
+
+    def find_spec(self, name: str, path: Any = None, target: Any = None) -> None:
+        if name == "pandas" or name.startswith("pandas."):
+            raise ImportError("pandas is not needed here")
+
+
+def arrow_without_pandas() -> None:
+    """Keep pyarrow from importing pandas, a fifth of a second of every check and profile.
+
+    pyarrow looks for pandas the first time it converts Python values (any ``pa.array`` or scalar
+    argument) and would import it then; these commands hand it no pandas objects. pyarrow is let to
+    find pandas absent once, and asks again (and imports it) only when pandas objects are really wanted.
+    """
+    import sys
+
+    if "pandas" in sys.modules:
+        return
+    import pyarrow as pa
+
+    finder = _NoPandas()
+    sys.meta_path.insert(0, finder)
+    try:
+        pa.array([0])
+    finally:
+        sys.meta_path.remove(finder)
+
+
+def prefer_jemalloc() -> None:
+    """Make jemalloc Arrow's allocator, where pyarrow is built with it (else keep its default).
+
+    Checking and profiling allocate and free column-sized buffers all the time; mimalloc, Arrow's
+    default, hands freed pages back to the system within milliseconds, jemalloc keeps them for reuse:
+    less of the run's CPU in the kernel, and a lower peak for the check.
+    """
+    import pyarrow as pa
+
+    try:
+        pa.set_memory_pool(pa.jemalloc_memory_pool())
+    except (NotImplementedError, pa.ArrowException):  # a pyarrow built without jemalloc
+        pass
+
+
+def reuse_freed_memory() -> None:
+    """Let glibc keep the memory of freed arrays of up to 32 MB for the next ones.
+
+    Profiling makes and frees thousands of column-sized numpy arrays; by default glibc hands each one
+    of some megabytes back to the system and maps it afresh for the next, and the kernel's work of
+    unmapping, mapping and zeroing those pages took as much CPU as a third of the profile. Other C
+    libraries have no such call and keep their default. (The check does not ask for it: it raised the
+    check's peak memory more than it saved time.)
+    """
+    try:
+        import ctypes
+
+        libc = ctypes.CDLL("libc.so.6")
+        libc.mallopt(M_MMAP_THRESHOLD, 32 << 20)
+        libc.mallopt(M_TRIM_THRESHOLD, 1 << 30)
+    except (OSError, AttributeError):
+        pass
