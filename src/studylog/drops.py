@@ -81,9 +81,8 @@ def check_file(
     from studylog.data.check import Checker
     from studylog.data.read import file_facts, open_source
     from studylog.data.rules import plan
-    from studylog.data.runtime import arrow_without_pandas, prefer_jemalloc
+    from studylog.data.runtime import arrow_without_pandas
 
-    prefer_jemalloc()
     arrow_without_pandas()
 
     spec = dictionary.table_spec(session, table, version)

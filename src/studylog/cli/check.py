@@ -45,8 +45,10 @@ def check(
     2 bad input (nothing recorded).
     """
     from studylog import drops
+    from studylog.data.runtime import prefer_jemalloc
     from studylog.errors import ChecksFailed, UsageError
 
+    prefer_jemalloc()
     if fail_on not in drops.FAIL_ON:
         raise UsageError(f"--fail-on must be one of {', '.join(drops.FAIL_ON)}, not '{fail_on}'")
     unit = reading() if no_record else writing()

@@ -46,9 +46,8 @@ def profile(
     """
     from studylog import profiling
     from studylog.cli.common import location
-    from studylog.errors import NoStudyFound
-
     from studylog.data.runtime import prefer_jemalloc, reuse_freed_memory
+    from studylog.errors import NoStudyFound
 
     reuse_freed_memory()
     prefer_jemalloc()

@@ -1,7 +1,9 @@
 """Process-wide settings of the data libraries, for the commands that read whole files.
 
-Each is a choice for the whole process, made by the command that needs it (``check``, ``profile``),
-never on import: a notebook using the Python API keeps its own settings.
+The allocator settings are choices for the whole process: only the command line's ``check`` and
+``profile`` make them, so a notebook using the Python API keeps its own. ``arrow_without_pandas`` is
+safe anywhere: it does nothing once pandas is imported, and pyarrow imports pandas later if asked for
+pandas objects.
 """
 
 from __future__ import annotations
