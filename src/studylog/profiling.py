@@ -147,9 +147,9 @@ def profile_file(
         reading = reader.submit(_read, path, encoding, sheet)
         # what the profile needs besides the data, imported while the file is read (pyarrow reads
         # outside Python's lock): the computations, and the distributions of the p-values
-        from studylog.data import profile
+        from studylog.data import profile, significance
 
-        _import_quietly("scipy.special")
+        _quietly(significance.tails)
         data = reading.result()
     pool = profile.workers()
     try:
@@ -167,13 +167,11 @@ def _read(path: Path, encoding: str | None, sheet: str | None) -> Any:
     return read_table(path, encoding=encoding, sheet=sheet)
 
 
-def _import_quietly(name: str) -> None:
-    """Import a module a later step needs, now; a failure is left for that step's own import to report."""
-    import importlib
-
+def _quietly(load: Callable[[], Any]) -> None:
+    """Load what a later step needs, now; a failure is left for that step to report."""
     try:
-        importlib.import_module(name)
-    except Exception:  # noqa: BLE001 - reported where the module is used
+        load()
+    except Exception:  # noqa: BLE001 - reported where it is used
         pass
 
 

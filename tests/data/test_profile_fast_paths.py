@@ -136,3 +136,25 @@ def test_to_numpy_fills_nulls_across_chunks_and_slices(values: list[int | None],
             found = univariate.to_numpy(arrow, fill)
             assert found.flags.writeable and found.dtype == (bool if kind == pa.bool_() else found.dtype)
             assert np.array_equal(found, np.array(expected, dtype=found.dtype), equal_nan=kind == pa.float64())
+
+
+def test_distribution_tails_load_without_the_package_and_leave_it_importable() -> None:
+    """The compiled functions alone (in a fresh process): the same objects as scipy.special's, and
+    scipy.special and scipy.stats import as usual afterwards."""
+    import subprocess
+    import sys
+
+    code = (
+        "import sys\n"
+        "from studylog.data import significance\n"
+        "tails = significance.tails()\n"
+        "assert 'scipy.special' not in sys.modules, 'the whole package was imported'\n"
+        "assert 'numpy.testing' not in sys.modules\n"
+        "p = significance.chi_square(__import__('numpy').array([[10, 20], [30, 5]]))['p_value']\n"
+        "from scipy import special, stats\n"
+        "assert special.chdtrc is tails.chdtrc and special.fdtrc is tails.fdtrc\n"
+        "assert p == stats.chi2_contingency([[10, 20], [30, 5]], correction=False).pvalue\n"
+        "assert stats.shapiro([1.0, 2.0, 4.0, 7.0]).pvalue > 0\n"
+    )
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
+    assert done.returncode == 0, done.stderr

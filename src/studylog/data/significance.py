@@ -1,7 +1,7 @@
 """Test statistics and p-values computed from sums, so that large files never need a second pass.
 
-scipy.special gives the distribution tails (it imports in a fraction of the time scipy.stats takes);
-every function here is checked against scipy.stats in the reference tests.
+scipy.special's compiled functions give the distribution tails (loaded without the rest of the package:
+see ``tails``); every function here is checked against scipy.stats in the reference tests.
 
 - D'Agostino-Pearson K^2 = Z(skewness)^2 + Z(kurtosis)^2 (D'Agostino, Belanger & D'Agostino 1990),
   chi-square with 2 degrees of freedom;
@@ -17,16 +17,64 @@ every function here is checked against scipy.stats in the reference tests.
 from __future__ import annotations
 
 import math
+import threading
 from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
 
+_tails: Any = None
+_tails_lock = threading.Lock()
+
+
+def tails() -> Any:
+    """The module holding scipy.special's compiled functions (``chdtrc``, ``fdtrc``: the same objects
+    as ``scipy.special``'s).
+
+    ``import scipy.special`` also loads scipy's array-API layer, which walks numpy's namespace and
+    so imports numpy.testing, f2py, ma and polynomial: a tenth to a fifth of a second of a profile,
+    all of it holding Python's lock. The compiled module alone takes a fiftieth: it is imported
+    under a bare package object that stands in for scipy.special while it loads and is then taken
+    out of ``sys.modules``, so that a later ``import scipy.special`` (scipy.stats's) runs the
+    package as usual and finds the module already loaded. Any failure takes the usual import."""
+    global _tails
+    if _tails is None:
+        with _tails_lock:
+            if _tails is None:
+                _tails = _load_tails()
+    return _tails
+
+
+def _load_tails() -> Any:
+    import importlib
+    import importlib.util
+    import sys
+
+    if "scipy.special" in sys.modules:
+        from scipy import special
+
+        return special
+    try:
+        spec = importlib.util.find_spec("scipy.special")
+        if spec is None or spec.submodule_search_locations is None:
+            raise ImportError("scipy.special")
+        package = importlib.util.module_from_spec(spec)
+        sys.modules["scipy.special"] = package
+        try:
+            compiled = importlib.import_module("scipy.special._ufuncs")
+        finally:
+            if sys.modules.get("scipy.special") is package:
+                del sys.modules["scipy.special"]
+        compiled.chdtrc, compiled.fdtrc  # noqa: B018 - what this module uses, else the usual import
+        return compiled
+    except Exception:  # noqa: BLE001 - any trouble: the package's own import (which reports a real failure)
+        from scipy import special
+
+        return special
+
 
 def _chi2_sf(statistic: float, df: float) -> float:
-    from scipy import special
-
-    return float(special.chdtrc(df, statistic))
+    return float(tails().chdtrc(df, statistic))
 
 
 def dagostino_pearson(values: np.ndarray) -> tuple[float, float]:
@@ -86,10 +134,8 @@ def anova(groups: np.ndarray, values: np.ndarray, k: int, sizes: np.ndarray | No
     df_between, df_within = groups_used - 1, n - groups_used
     if ss_total == 0:
         return None
-    from scipy import special
-
     f = (ss_between / df_between) / (ss_within / df_within) if ss_within > 0 else math.inf
-    p = float(special.fdtrc(df_between, df_within, f)) if math.isfinite(f) else 0.0
+    p = float(tails().fdtrc(df_between, df_within, f)) if math.isfinite(f) else 0.0
     return {"f": f, "df_between": df_between, "df_within": df_within, "p_unadjusted": p,
             "eta_squared": ss_between / ss_total}
 
