@@ -183,3 +183,82 @@ def test_distinct_estimate_from_the_checks_digests_equals_the_one_from_the_text(
     # the estimate is within a few standard errors (1 / sqrt(k - 2), about 6%) of the true count
     true = len({v for v in values if v != "-99"})
     assert abs(direct.to_dict()["distinct"] - true) / true < 0.25
+
+
+def test_quantiles_of_many_rows_with_few_distinct_values_are_exact_and_equal_numpy() -> None:
+    # More rows than EXACT_LIMIT but few distinct values: the value counts are exact, so are the
+    # quantiles, histogram and outlier counts; numpy on the values themselves is the reference
+    # (np.quantile's default "linear" method is Hyndman & Fan type 7).
+    from studylog.data.numeric_summary import counted_outliers
+
+    rng = np.random.default_rng(5)
+    x = np.round(rng.normal(50, 12, size=3 * EXACT_LIMIT))
+    profile = summarise([repr(float(v)) for v in x], batch=65_536)
+    assert profile["quantiles_exact"] is True and profile["quantile_error"] == 0.0
+    probabilities = [0.25, 0.5, 0.75] + [i / 10 for i in range(1, 10)]
+    expected = np.quantile(x, probabilities).tolist()
+    assert [profile["q1"], profile["median"], profile["q3"]] + profile["deciles"] == expected
+    edges = np.array(profile["histogram"]["edges"])
+    assert profile["histogram"]["counts"] == np.histogram(x, bins=edges)[0].tolist()
+    values, counts = np.unique(x, return_counts=True)
+    assert profile["value_counts"] == {"values": [int(v) for v in values], "counts": counts.tolist()}
+    # the value counts are listed, so drift needs no sketch
+    assert profile["sketch"] is None
+    # Tukey's fences on Tukey's hinges, and the modified z-score, computed on the sorted values
+    ordered = np.sort(x)
+    half = (len(x) + 1) // 2
+    low, high = np.median(ordered[:half]), np.median(ordered[len(x) - half:])
+    spread = high - low
+    median = np.median(x)
+    mad = np.median(np.abs(x - median))
+    assert profile["outliers"] == {
+        "tukey": int(((x < low - 1.5 * spread) | (x > high + 1.5 * spread)).sum()),
+        "tukey_far": int(((x < low - 3 * spread) | (x > high + 3 * spread)).sum()),
+        "modified_z": int((np.abs(0.6745 * (x - median) / mad) > 3.5).sum()),
+    }
+    assert counted_outliers(values, counts) == profile["outliers"]
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.lists(st.integers(-20, 20), min_size=1, max_size=80), st.integers(0, 2))
+def test_counted_quantiles_equal_numpys_bit_for_bit(values: list[int], scale: int) -> None:
+    # the reference is numpy's own np.quantile (linear) on the repeated values
+    from studylog.data.numeric_summary import PROBABILITIES, counted_quantiles
+
+    x = np.asarray(values, dtype=float) / 10**scale
+    distinct, counts = np.unique(x, return_counts=True)
+    assert counted_quantiles(distinct, counts, PROBABILITIES) == np.quantile(x, PROBABILITIES).tolist()
+
+
+def test_sketch_stored_when_the_value_counts_are_not() -> None:
+    # between 1,000 and EXACT_LIMIT distinct values: quantiles exact, value counts not listed, and the
+    # sketch (built from the counts) is stored for drift; it holds every value
+    rng = np.random.default_rng(9)
+    x = np.round(rng.normal(0, 1, size=200_000), 3)
+    profile = summarise([repr(float(v)) for v in x], batch=65_536)
+    assert profile["quantiles_exact"] is True and profile["value_counts"] is None
+    assert profile["median"] == np.quantile(x, 0.5)
+    assert decode_sketch(profile["sketch"]).n == len(x)
+
+
+def test_withheld_columns_count_distinct_values_as_the_level_counts_do(monkeypatch) -> None:
+    # a direct identifier's values are never stored: its distinct count comes from the digests alone
+    # and must be the one the level counts give (exact, then the same k-minimum-values estimate)
+    from studylog.data import summary as module
+
+    monkeypatch.setattr(module, "LEVEL_LIMIT", 2_000)
+    monkeypatch.setattr(module, "KMV_K", 256)
+    rng = np.random.default_rng(3)
+    for top in (1_500, 40_000):
+        values = [f"p{v}@example.org" for v in rng.integers(0, top, 10_000)]
+        array = pa.array(values, pa.string())
+        counts = module.LevelCounts()
+        for start in range(0, len(array), 999):
+            counts.update(array.slice(start, 999))
+        levels, other, distinct, exact = counts.result()
+        secret = VariableSpec(name="email", type="identifier", sensitivity="direct-identifier")
+        profile = summarise(values, secret, batch=999)
+        assert profile["levels"] == [] and profile["levels_withheld"] is True
+        assert profile["levels_other"] == sum(lv["count"] for lv in levels) + other == len(values)
+        assert (profile["distinct"], profile["distinct_exact"]) == (distinct, exact)
+        assert exact is (top < 2_000)

@@ -15,10 +15,12 @@ What is exact and what is estimated (stated in every profile):
 
 - counts, missing, missing codes, min, max, mean and sd (n - 1) are exact;
 - quantiles (q1, median, q3, deciles; linear interpolation, Hyndman & Fan type 7) are exact while the
-  column holds at most ``EXACT_LIMIT`` (100,000) numeric values; beyond that they come from a KLL sketch
-  (Apache DataSketches, k = 200) and ``quantile_error`` is its normalized rank error bound (about 1.33%
-  of the ranks, at 99% confidence); ``quantile_error`` is 0 when exact. The sketch is always stored
-  (base64 of ``kll_doubles_sketch.serialize()``), so drift can read the later drop's CDF at any edges;
+  column holds at most ``EXACT_LIMIT`` (100,000) distinct numeric values, whatever its number of rows
+  (they come from the exact value counts, ``studylog.data.numeric_summary``); beyond that they come
+  from a KLL sketch (Apache DataSketches, k = 200) and ``quantile_error`` is its normalized rank error
+  bound (about 1.33% of the ranks, at 99% confidence); ``quantile_error`` is 0 when exact. The sketch
+  (base64 of ``kll_doubles_sketch.serialize()``) is stored whenever the value counts are not, so drift
+  can read the later drop's CDF at any edges;
 - ``value_counts``: every distinct numeric value with its count, when there are at most 1,000 (else
   null); drift bins such columns exactly;
 - ``histogram``: 20 equal-width bins from min to max; counts exact while exact, else from the sketch;
@@ -43,31 +45,22 @@ import base64
 from collections.abc import Callable
 from typing import TYPE_CHECKING, Any
 
+from studylog.data.numeric_summary import EXACT_LIMIT, KLL_K, NumericSummary, kll_error
+from studylog.data.numeric_summary import number as _number
 from studylog.data.spec import NUMERIC_TYPES, VariableSpec
 
 if TYPE_CHECKING:
     import numpy as np
     import pyarrow as pa
 
-EXACT_LIMIT = 100_000
 LEVEL_LIMIT = 100_000
 LEVELS_STORED = 1_000
-VALUE_COUNTS_STORED = 1_000
-KLL_K = 200
 KMV_K = 4096
-HISTOGRAM_BINS = 20
 NUMBER_PATTERN = r"^[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?$"
 DEFAULT_DATE_FORMAT = "%Y-%m-%d"
 DATETIME_FORMATS = ("%Y-%m-%dT%H:%M:%S", "%Y-%m-%d %H:%M:%S", "%Y-%m-%dT%H:%M", "%Y-%m-%d %H:%M")
 DATE_TYPES = ("date", "datetime")
 WITHHELD_SENSITIVITY = ("direct-identifier",)
-
-
-def kll_error() -> float:
-    """The KLL sketch's normalized rank error bound for k = 200 (single-sided quantile queries)."""
-    from datasketches import kll_doubles_sketch
-
-    return float(kll_doubles_sketch.get_normalized_rank_error(KLL_K, False))
 
 
 def decode_sketch(text: str):  # type: ignore[no-untyped-def]
@@ -92,7 +85,19 @@ class DistinctEstimate:
         if len(self.smallest) == KMV_K:
             # only hashes below the k-th smallest so far can change the estimate
             hashes = hashes[hashes < self.smallest[-1]]
-        merged = np.unique(np.concatenate([self.smallest, hashes]))
+        candidates = np.concatenate([self.smallest, hashes])
+        # the k smallest distinct values are among the m smallest values (with repeats) once those
+        # hold k distinct ones: a partition, then a sort of only those
+        m = KMV_K
+        while True:
+            if m >= len(candidates):
+                merged = np.unique(candidates)
+                break
+            threshold = np.partition(candidates, m - 1)[m - 1]
+            merged = np.unique(candidates[candidates <= threshold])
+            if len(merged) >= KMV_K:
+                break
+            m *= 2
         self.smallest = merged[:KMV_K]
 
     def add_values(self, values: pa.Array | np.ndarray) -> None:
@@ -261,135 +266,6 @@ class LevelCounts:
         return levels, int(other), int(distinct), self.exact
 
 
-class NumericSummary:
-    """Mergeable numeric statistics: exact moments, KLL sketch, and an exact buffer while small."""
-
-    def __init__(self) -> None:
-        from datasketches import kll_doubles_sketch
-
-        self.n = 0
-        self.mean = 0.0
-        self.m2 = 0.0
-        self.minimum = float("inf")
-        self.maximum = float("-inf")
-        self.sketch = kll_doubles_sketch(KLL_K)
-        self.buffer: list[np.ndarray] | None = []
-        self.buffered = 0
-        self.distinct = DistinctEstimate()
-        import numpy as np
-
-        # the exact distinct values and their counts while at most LEVEL_LIMIT; else None
-        self.uniques: np.ndarray | None = np.empty(0)
-        self.unique_counts = np.empty(0, dtype=np.int64)
-
-    def update(self, x: np.ndarray) -> None:
-        import numpy as np
-
-        if len(x) == 0:
-            return
-        # the sketch's binding needs a writable, contiguous float64 array
-        x = np.array(x, dtype=np.float64, copy=True)
-        batch_mean = float(x.mean())
-        batch_m2 = float(((x - batch_mean) ** 2).sum())
-        self._combine(len(x), batch_mean, batch_m2)
-        self.minimum = min(self.minimum, float(x.min()))
-        self.maximum = max(self.maximum, float(x.max()))
-        self.sketch.update(x)
-        if self.buffer is not None:
-            self.buffer.append(x)
-            self.buffered += len(x)
-            if self.buffered > EXACT_LIMIT:
-                self.buffer = None
-        self._add_uniques(*np.unique(x, return_counts=True))
-
-    def _add_uniques(self, uniques: np.ndarray, counts: np.ndarray) -> None:
-        import numpy as np
-
-        if self.uniques is None:
-            self.distinct.add_hashes(hash_values(uniques))
-            return
-        values, index = np.unique(np.concatenate([self.uniques, uniques]), return_inverse=True)
-        self.unique_counts = np.bincount(
-            index, weights=np.concatenate([self.unique_counts, counts]), minlength=len(values)
-        ).astype(np.int64)
-        self.uniques = values
-        if len(self.uniques) > LEVEL_LIMIT:
-            self.distinct.add_hashes(hash_values(self.uniques))
-            self.uniques = None
-
-    def _combine(self, n: int, mean: float, m2: float) -> None:
-        # Chan, Golub & LeVeque (1979): pairwise update of count, mean and sum of squared deviations
-        if n == 0:
-            return
-        total = self.n + n
-        delta = mean - self.mean
-        self.mean += delta * n / total
-        self.m2 += m2 + delta * delta * self.n * n / total
-        self.n = total
-
-    def merge(self, other: NumericSummary) -> None:
-        self._combine(other.n, other.mean, other.m2)
-        self.minimum = min(self.minimum, other.minimum)
-        self.maximum = max(self.maximum, other.maximum)
-        self.sketch.merge(other.sketch)
-        if self.buffer is not None and other.buffer is not None and \
-                self.buffered + other.buffered <= EXACT_LIMIT:
-            self.buffer.extend(other.buffer)
-            self.buffered += other.buffered
-        else:
-            self.buffer = None
-        if other.uniques is not None:
-            self._add_uniques(other.uniques, other.unique_counts)
-        else:
-            if self.uniques is not None:
-                self.distinct.add_hashes(hash_values(self.uniques))
-                self.uniques = None
-            self.distinct.merge(other.distinct)
-
-    def to_dict(self) -> dict[str, Any]:
-        import numpy as np
-
-        if self.n == 0:
-            return {key: None for key in (
-                "min", "max", "mean", "sd", "q1", "median", "q3", "deciles", "sketch", "histogram",
-                "outliers", "value_counts")} | {"quantile_error": 0.0, "quantiles_exact": True}
-        probabilities = [0.25, 0.5, 0.75] + [i / 10 for i in range(1, 10)]
-        exact = self.buffer is not None
-        edges = np.linspace(self.minimum, self.maximum, HISTOGRAM_BINS + 1)
-        if self.minimum == self.maximum:
-            edges = np.array([self.minimum, self.maximum])
-        outliers = None
-        if exact:
-            values = np.sort(np.concatenate(self.buffer))
-            quantiles = np.quantile(values, probabilities).tolist()
-            counts = np.histogram(values, bins=edges)[0].tolist()
-            outliers = outlier_counts(values)
-        else:
-            quantiles = [float(q) for q in self.sketch.get_quantiles(probabilities)]
-            cdf = np.asarray(self.sketch.get_cdf(edges[1:-1].tolist()))[:-1] if len(edges) > 2 else []
-            cumulative = np.concatenate([[0.0], np.asarray(cdf) * self.n, [float(self.n)]])
-            counts = np.round(np.diff(cumulative)).astype(int).tolist()
-        sd = float(np.sqrt(self.m2 / (self.n - 1))) if self.n > 1 else None
-        return {
-            "min": _number(self.minimum), "max": _number(self.maximum), "mean": self.mean, "sd": sd,
-            "q1": quantiles[0], "median": quantiles[1], "q3": quantiles[2], "deciles": quantiles[3:],
-            "quantiles_exact": exact, "quantile_error": 0.0 if exact else kll_error(),
-            "sketch": base64.b64encode(self.sketch.serialize()).decode("ascii"),
-            "histogram": {"edges": [_number(e) for e in edges], "counts": counts},
-            "outliers": outliers,
-            # every distinct value with its count, when few: drift then bins them exactly
-            "value_counts": (
-                {"values": [_number(v) for v in self.uniques], "counts": self.unique_counts.tolist()}
-                if self.uniques is not None and len(self.uniques) <= VALUE_COUNTS_STORED else None
-            ),
-        }
-
-    def distinct_count(self) -> tuple[int, bool]:
-        if self.uniques is not None:
-            return int(len(self.uniques)), True
-        return self.distinct.estimate(), False
-
-
 def _dictionary_counts(encoded: pa.DictionaryArray, missing: pa.Array) -> tuple[pa.Array, np.ndarray]:
     """The present values of a dictionary-encoded column and their counts, in order of first appearance.
 
@@ -427,31 +303,60 @@ def _finite_numbers(present: pa.Array) -> np.ndarray:
     return numbers[np.isfinite(numbers)]
 
 
-def outlier_counts(sorted_values: np.ndarray) -> dict[str, int | None]:
-    """Tukey fences (1.5 and 3 x the spread between Tukey's hinges) and modified z-scores (|M| > 3.5).
+class WithheldCounts:
+    """The counts kept for a column whose values are withheld (free text, direct identifiers): how many
+    values, and how many distinct ones, from the 64-bit digests of the values alone.
 
-    Tukey's hinges are the medians of the lower and upper halves, each half including the median when n
-    is odd (Tukey 1977), as box plots draw them. Modified z: M = 0.6745 (x - median) / MAD (Iglewicz &
-    Hoaglin 1993); when MAD is 0 the count is null (no spread to measure against).
+    Exact (up to ``LEVEL_LIMIT`` distinct digests; two values share a digest with probability about
+    2^-64 per pair) and then the k-minimum-values estimate of the same digests that ``LevelCounts`` uses,
+    so the profile is ``LevelCounts``'s without counting each value's text.
     """
-    import numpy as np
 
-    x = sorted_values
-    n = len(x)
-    half = (n + 1) // 2
-    lower_hinge = float(np.median(x[:half]))
-    upper_hinge = float(np.median(x[n - half:]))
-    spread = upper_hinge - lower_hinge
-    inner = (x < lower_hinge - 1.5 * spread) | (x > upper_hinge + 1.5 * spread)
-    outer = (x < lower_hinge - 3 * spread) | (x > upper_hinge + 3 * spread)
-    median = float(np.median(x))
-    mad = float(np.median(np.abs(x - median)))
-    modified = None if mad == 0 else int((np.abs(0.6745 * (x - median) / mad) > 3.5).sum())
-    return {"tukey": int(inner.sum()), "tukey_far": int(outer.sum()), "modified_z": modified}
+    def __init__(self) -> None:
+        import numpy as np
 
+        self.count = 0
+        self.seen: np.ndarray | None = np.empty(0, dtype=np.uint64)
+        self.distinct = DistinctEstimate()
 
-def _number(value: float) -> float | int:
-    return int(value) if float(value).is_integer() and abs(value) < 2**53 else float(value)
+    def update(self, values: pa.Array, hashes: Callable[[], np.ndarray] | None = None,
+               counted: Callable[[], tuple[pa.Array, np.ndarray]] | None = None) -> None:
+        if len(values) == 0:
+            return
+        self.count += len(values)
+        self._add(hashes() if hashes is not None else hash_values(values))
+
+    def _add(self, digests: np.ndarray) -> None:
+        import numpy as np
+
+        if self.seen is None:
+            self.distinct.add_hashes(digests)
+            return
+        new = np.unique(digests.astype(np.uint64, copy=False))
+        position = np.searchsorted(self.seen, new)
+        found = position < len(self.seen)
+        found[found] = self.seen[position[found]] == new[found]
+        if not found.all():
+            self.seen = np.insert(self.seen, position[~found], new[~found])
+        if len(self.seen) > LEVEL_LIMIT:
+            self.distinct.add_hashes(self.seen)
+            self.seen = None
+
+    def merge(self, other: WithheldCounts) -> None:
+        self.count += other.count
+        if other.seen is not None:
+            self._add(other.seen)
+        else:
+            if self.seen is not None:
+                self.distinct.add_hashes(self.seen)
+                self.seen = None
+            self.distinct.merge(other.distinct)
+
+    def result(self) -> tuple[list[dict[str, Any]], int, int, bool]:
+        """As ``LevelCounts.result``, with no levels: every value is among the others."""
+        if self.seen is not None:
+            return [], self.count, int(len(self.seen)), True
+        return [], self.count, max(self.distinct.estimate(), min(LEVELS_STORED, self.count)), False
 
 
 class ColumnSummary:
@@ -470,7 +375,9 @@ class ColumnSummary:
         self.invalid = 0
         self.withheld = self.type == "text" or bool(spec and spec.sensitivity in WITHHELD_SENSITIVITY)
         self.numeric = NumericSummary() if self.type in NUMERIC_TYPES else None
-        self.levels = LevelCounts() if self.type not in NUMERIC_TYPES + DATE_TYPES else None
+        self.levels: LevelCounts | WithheldCounts | None = None
+        if self.type not in NUMERIC_TYPES + DATE_TYPES:
+            self.levels = WithheldCounts() if self.withheld else LevelCounts()
         self.date_min: str | None = None
         self.date_max: str | None = None
         self.dates = LevelCounts() if self.type in DATE_TYPES else None
@@ -543,14 +450,16 @@ class ColumnSummary:
         present = n - int(pc.sum(parsed.missing).as_py() or 0)
         self.present += present
         if self.numeric is not None:
-            values = parsed.values
+            numbers = parsed.values.drop_null().to_numpy(zero_copy_only=False).astype(np.float64, copy=False)
             if self.type == "integer" and pc.any(parsed.invalid).as_py():
                 # the stored profile takes any finite number in an integer column ('1.5'), as the
-                # summary of the raw text does; the check's reading calls it invalid
-                rest = pc.utf8_trim_whitespace(pc.if_else(parsed.invalid, strings,
-                                                          pa.scalar(None, strings.type)))
-                values = pc.coalesce(values, _parse_numbers(rest))
-            numbers = values.drop_null().to_numpy(zero_copy_only=False).astype(np.float64, copy=False)
+                # summary of the raw text does; the check's reading calls it invalid. Only the
+                # invalid cells are read again, and put back in their places (null is NaN here)
+                where = pc.indices_nonzero(parsed.invalid)
+                numbers = np.array(parsed.values.to_numpy(zero_copy_only=False), dtype=np.float64)
+                more = _parse_numbers(pc.utf8_trim_whitespace(strings.take(where)))
+                numbers[where.to_numpy()] = more.to_numpy(zero_copy_only=False)
+                numbers = numbers[~np.isnan(numbers)]
             self.invalid += present - len(numbers)
             self.numeric.update(numbers)
         elif self.dates is not None:

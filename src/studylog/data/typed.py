@@ -103,14 +103,28 @@ def parse(strings: Any, spec: VariableSpec) -> Parsed:
 def parse_encoded(encoded: Any, spec: VariableSpec) -> Parsed:
     """``parse`` of a dictionary-encoded column: each distinct value is read once, then spread to its
     rows (a null cell is missing and blank, never invalid), which gives the same ``Parsed``."""
+    import numpy as np
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
     from studylog.data.repeats import spread
 
     once = parse(encoded.dictionary, spec)
+    # a mask that no distinct value sets is the null cells' mask (or all false): no spreading needed,
+    # which is the common case for missing, blank and invalid cells
+    nulls = pc.is_null(encoded.indices)
+    none = nulls if not encoded.indices.null_count else pa.array(np.zeros(len(encoded), dtype=bool))
+
+    def mask(per_value: Any, fill: bool) -> Any:
+        if not pc.any(per_value).as_py():
+            return nulls if fill else none
+        return spread(encoded, per_value, fill)
+
     return Parsed(
         values=spread(encoded, once.values),
-        missing=spread(encoded, once.missing, True),
-        empty=spread(encoded, once.empty, True),
-        invalid=spread(encoded, once.invalid, False),
+        missing=mask(once.missing, True),
+        empty=mask(once.empty, True),
+        invalid=mask(once.invalid, False),
     )
 
 
