@@ -29,6 +29,7 @@ if TYPE_CHECKING:
 SAMPLE = 2048
 FEW = SAMPLE // 2
 MERGE_LIMIT = 1 << 22
+MERGE_RATIO = 2
 _SEED_HI = 0x9E3779B97F4A7C15
 _SEED_LO = 0xD6E8FEB86659FD93
 _MUL_HI = 0xFF51AFD7ED558CCD
@@ -257,29 +258,34 @@ def packed(digest: tuple[np.ndarray, np.ndarray]) -> bytes:
 
 
 class SeenDigests:
-    """The set of digests seen so far, 8 bytes each, as a few sorted numpy arrays (no Python object per row).
+    """The set of digests seen so far, as a few sorted runs of their first 64-bit lane (no Python object
+    per row).
 
     A check of a file far larger than memory keeps one of these per remembering rule (``unique``, ``key``,
-    ``repeated-row``), so it keeps only the first 64-bit lane of each 16-byte digest: 80 MB per rule for
-    10 million rows instead of 160. The price is a false repeat when two different values share their
-    first lane: for n distinct values the chance that this happens at all in a file is about
-    n^2 / 2^65 (2.7e-6 for 10 million distinct values, 2.7e-4 for 100 million). The record digests
-    that are stored and compared between drops keep both lanes.
+    ``repeated-row``), so it keeps only the first 64-bit lane of each 16-byte digest. The price is a false
+    repeat when two different values share their first lane: for n distinct values the chance that this
+    happens at all in a file is about n^2 / 2^65 (2.7e-6 for 10 million distinct values, 2.7e-4 for 100
+    million). The record digests that are stored and compared between drops keep both lanes.
 
     ``observe`` marks which digests of a batch were seen before (in an earlier batch, or earlier in the
     same batch) and adds the new ones. New digests form a sorted run; runs of similar size are merged
-    (like a binary counter) up to ``MERGE_LIMIT`` entries, so a lookup searches O(log n) runs and the
-    extra memory of a merge stays bounded.
+    (like a binary counter, by a linear merge a block at a time) up to ``MERGE_LIMIT`` entries, so a lookup
+    searches O(log n) runs. A run of at least ``SPLIT_ROWS`` entries keeps only the high 32 bits of each
+    lane in memory and its low 32 bits in a temporary file (:class:`_Halves`): 4 bytes a row in memory,
+    40 MB per rule for 10 million rows. A digest is looked up by its high half, and the few whose high half
+    is found (a repeat, or one in n / 2^32 others) have their low half read back, so a repeat is still a
+    repeat of the whole 64-bit lane: the same answers as a set held in memory.
     """
 
     def __init__(self) -> None:
-        self.runs: list[np.ndarray] = []
+        self.runs: list[Any] = []
 
     def __len__(self) -> int:
         return sum(len(run) for run in self.runs)
 
     @property
     def nbytes(self) -> int:
+        """Bytes held in memory (the low halves of large runs are in temporary files)."""
         return sum(run.nbytes for run in self.runs)
 
     def observe(self, hi: np.ndarray, lo: np.ndarray | None = None) -> np.ndarray:
@@ -305,10 +311,7 @@ class SeenDigests:
             earliest = np.minimum.reduceat(order, np.flatnonzero(~seen_sorted))
             seen_sorted = order != earliest[group]
         for run in self.runs:
-            # needles in sorted order: numpy's binary search narrows from the previous answer
-            position = np.searchsorted(run, sorted_hi)
-            np.minimum(position, len(run) - 1, out=position)
-            seen_sorted |= run[position] == sorted_hi
+            seen_sorted |= _contains(run, sorted_hi)
         repeat[order] = seen_sorted
         self._add(sorted_hi[~seen_sorted])
         return repeat
@@ -318,11 +321,163 @@ class SeenDigests:
 
         if len(values) == 0:
             return
-        self.runs.append(np.ascontiguousarray(values, dtype=np.uint64))
+        self.runs.append(_kept(np.ascontiguousarray(values, dtype=np.uint64)))
         while len(self.runs) > 1:
             a, b = self.runs[-2], self.runs[-1]
-            if len(a) > 2 * len(b) or len(a) + len(b) > MERGE_LIMIT:
+            if len(a) > MERGE_RATIO * len(b) or len(a) + len(b) > MERGE_LIMIT:
                 break
-            merged = np.concatenate([a, b])
-            merged.sort()
-            self.runs[-2:] = [merged]
+            self.runs[-2:] = [_merged(a, b)]
+            _close(a)
+            _close(b)
+
+    def close(self) -> None:
+        """Let go of the runs and their temporary files at once (else when the set is collected)."""
+        for run in self.runs:
+            _close(run)
+        self.runs = []
+
+
+# a run this long keeps its low halves in a temporary file; a merge handles this many entries at a time
+SPLIT_ROWS = 1 << 18
+MERGE_BLOCK = 1 << 18
+_LOW = 0xFFFFFFFF
+
+
+class _Halves:
+    """A sorted run of 64-bit digests: the high 32 bits in memory, the low 32 bits in a temporary file."""
+
+    def __init__(self, size: int) -> None:
+        import tempfile
+
+        import numpy as np
+
+        self.top = np.empty(size, dtype=np.uint32)
+        self.file = tempfile.TemporaryFile(prefix="studylog-seen-")  # noqa: SIM115 - kept open
+        self.filled = 0
+
+    def append(self, values: np.ndarray) -> None:
+        """Add the next sorted values (while the run is being built)."""
+        import numpy as np
+
+        stop = self.filled + len(values)
+        np.right_shift(values, np.uint64(32), out=self.top[self.filled:stop], casting="unsafe")
+        values.astype("<u4").tofile(self.file)
+        self.filled = stop
+
+    def __len__(self) -> int:
+        return len(self.top)
+
+    @property
+    def nbytes(self) -> int:
+        return int(self.top.nbytes)
+
+    def values(self, start: int, stop: int) -> np.ndarray:
+        """The whole 64-bit values of entries ``start`` to ``stop``."""
+        import numpy as np
+
+        self.file.seek(4 * start)
+        low = np.fromfile(self.file, dtype="<u4", count=stop - start)
+        out = self.top[start:stop].astype(np.uint64)
+        out <<= np.uint64(32)
+        out |= low
+        return out
+
+    def lows(self, positions: np.ndarray) -> np.ndarray:
+        """The low halves of the entries at these positions (read through a map of the file, let go at
+        once so that its pages do not stay in the process's memory)."""
+        import numpy as np
+
+        self.file.flush()
+        mapped = np.memmap(self.file, dtype="<u4", mode="r", shape=(len(self.top),))
+        try:
+            return np.asarray(mapped[positions], dtype=np.uint64)
+        finally:
+            mapped._mmap.close()  # type: ignore[attr-defined]
+            del mapped
+
+    def close(self) -> None:
+        self.file.close()
+
+
+def _kept(values: np.ndarray) -> Any:
+    """A new sorted run as it is kept: in memory while short, else split into halves."""
+    if len(values) < SPLIT_ROWS:
+        return values
+    run = _Halves(len(values))
+    for start in range(0, len(values), MERGE_BLOCK):
+        run.append(values[start:start + MERGE_BLOCK])
+    run.file.flush()
+    return run
+
+
+def _close(run: Any) -> None:
+    if isinstance(run, _Halves):
+        run.close()
+
+
+def _values(run: Any, start: int, stop: int) -> np.ndarray:
+    return run.values(start, stop) if isinstance(run, _Halves) else run[start:stop]
+
+
+def _contains(run: Any, needles: np.ndarray) -> np.ndarray:
+    """Which of the sorted ``needles`` are in the run."""
+    import numpy as np
+
+    if not isinstance(run, _Halves):
+        # needles in sorted order: numpy's binary search narrows from the previous answer
+        position = np.searchsorted(run, needles)
+        np.minimum(position, len(run) - 1, out=position)
+        return run[position] == needles
+    found = np.zeros(len(needles), dtype=bool)
+    tops = (needles >> np.uint64(32)).astype(np.uint32)
+    position = np.searchsorted(run.top, tops)
+    # only the needles whose high half is there have their low half compared; equal high halves are
+    # consecutive, so each such needle walks its (practically always one-long) run of them
+    active = np.flatnonzero(position < len(run))
+    active = active[run.top[position[active]] == tops[active]]
+    lows = needles & np.uint64(_LOW)
+    while len(active):
+        hit = run.lows(position[active]) == lows[active]
+        found[active[hit]] = True
+        active = active[~hit]
+        position[active] += 1
+        active = active[position[active] < len(run)]
+        active = active[run.top[position[active]] == tops[active]]
+    return found
+
+
+def _merged(a: Any, b: Any) -> Any:
+    """The linear merge of two sorted runs, a block at a time (never both runs whole in 64 bits)."""
+    import numpy as np
+
+    total = len(a) + len(b)
+    if total < SPLIT_ROWS:
+        return _merge_sorted(_values(a, 0, len(a)), _values(b, 0, len(b)))
+    out = _Halves(total)
+    i = j = 0
+    while i < len(a) or j < len(b):
+        x = _values(a, i, min(i + MERGE_BLOCK, len(a)))
+        y = _values(b, j, min(j + MERGE_BLOCK, len(b)))
+        # what is certainly final: the entries up to the lower of the two blocks' last values (all of a
+        # block when its run ends with it)
+        more_x, more_y = i + len(x) < len(a), j + len(y) < len(b)
+        if more_x and (not more_y or x[-1] <= y[-1]):
+            x_count, y_count = len(x), int(np.searchsorted(y, x[-1], side="right"))
+        elif more_y:
+            x_count, y_count = int(np.searchsorted(x, y[-1], side="right")), len(y)
+        else:
+            x_count, y_count = len(x), len(y)
+        out.append(_merge_sorted(x[:x_count], y[:y_count]))
+        i += x_count
+        j += y_count
+    out.file.flush()
+    return out
+
+
+def _merge_sorted(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """Two sorted arrays as one: numpy's stable sort finds the two runs and merges them in one sweep."""
+    import numpy as np
+
+    out = np.concatenate([x, y])
+    out.sort(kind="stable")
+    return out
