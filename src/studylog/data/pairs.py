@@ -293,26 +293,34 @@ class NumericColumn:
     is_input: bool = True
 
 
-def correlations(columns: Sequence[NumericColumn], strong: float = DEFAULT_STRONG,
-                 mapper: Callable[..., Iterable[Any]] = map) -> dict[str, Any]:
-    """Every pair of numeric columns (the first 50): r, rho, n, strong, and which one to consider.
-    ``mapper`` (e.g. a thread pool's map) computes the pairs' Spearman coefficients."""
+def correlation_pairs(columns: Sequence[NumericColumn]) -> list[tuple[NumericColumn, NumericColumn]]:
+    """The pairs that ``correlations`` measures (of the first 50 columns), in its order."""
     used = list(columns[:MAX_NUMERIC_COLUMNS])
-    pairs: list[dict[str, Any]] = []
-    jobs = [(a, b) for i, a in enumerate(used) for b in used[i + 1:]]
+    return [(a, b) for i, a in enumerate(used) for b in used[i + 1:]]
 
-    def measure(job: tuple[NumericColumn, NumericColumn]) -> dict[str, Any]:
-        a, b = job
-        both = a.base.valid & b.base.valid
-        r, n = pearson_pair(a.base, b.base, both)
-        entry: dict[str, Any] = {"a": a.name, "b": b.name, "pearson": None, "spearman": None, "n": n,
-                                 "strong": False}
-        if n >= MIN_PAIR_CASES:
-            entry["pearson"] = r
-            entry["spearman"] = spearman_pair(a.base, b.base, both)
-        return entry
 
-    pairs.extend(mapper(measure, jobs))
+def correlation(job: tuple[NumericColumn, NumericColumn]) -> dict[str, Any]:
+    """One pair of ``correlations`` (before the strong pairs are marked)."""
+    a, b = job
+    both = a.base.valid & b.base.valid
+    r, n = pearson_pair(a.base, b.base, both)
+    entry: dict[str, Any] = {"a": a.name, "b": b.name, "pearson": None, "spearman": None, "n": n,
+                             "strong": False}
+    if n >= MIN_PAIR_CASES:
+        entry["pearson"] = r
+        entry["spearman"] = spearman_pair(a.base, b.base, both)
+    return entry
+
+
+def correlations(columns: Sequence[NumericColumn], strong: float = DEFAULT_STRONG,
+                 mapper: Callable[..., Iterable[Any]] = map,
+                 measured: Iterable[dict[str, Any]] | None = None) -> dict[str, Any]:
+    """Every pair of numeric columns (the first 50): r, rho, n, strong, and which one to consider.
+    ``mapper`` (e.g. a thread pool's map) computes the pairs; ``measured``: ``correlation`` of each of
+    ``correlation_pairs(columns)``, in their order, when the caller has computed them."""
+    used = list(columns[:MAX_NUMERIC_COLUMNS])
+    pairs: list[dict[str, Any]] = list(
+        mapper(correlation, correlation_pairs(columns)) if measured is None else measured)
     # mean absolute correlation of each input with the other inputs: the tie-breaker for strong pairs
     inputs = {c.name for c in used if c.is_input}
     absolute: dict[str, list[float]] = {name: [] for name in inputs}

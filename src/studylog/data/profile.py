@@ -13,7 +13,7 @@ from __future__ import annotations
 import math
 import os
 from collections.abc import Mapping, Sequence
-from concurrent.futures import Executor, ThreadPoolExecutor
+from concurrent.futures import Executor, Future, ThreadPoolExecutor, as_completed
 from typing import Any
 
 import numpy as np
@@ -273,12 +273,14 @@ def profile_table(
     pool = pool or workers()
     try:
         # columns are independent and numpy/Arrow release the GIL in their loops: one pool for every
-        # column and pair, the costly columns first
-        started = {name: pool.submit(_profile_column, name, table.column(name), spec_of[name],
+        # column and pair, the costly columns first (also the ones whose passing copies are largest,
+        # made before the numeric columns' sorts are held)
+        running = {name: pool.submit(_profile_column, name, table.column(name), spec_of[name],
                                      inferred_missing.get(name, ()))
                    for name in sorted(names, key=lambda name: -COST.get(spec_of[name].type, 1))}
-        columns = [started[name].result() for name in names]
-        by_name = {c.name: c for c in columns}
+        found = _Pairing(table, spec_of, target, pool).follow(running)
+        columns = [found.done[name] for name in names]
+        by_name = found.done
         numeric = [
             pairs.NumericColumn(c.name, c.base, c.entry["missing"],
                                 is_input=c.name != target and c.spec.role not in ("target", "identifier", "excluded"))
@@ -286,20 +288,15 @@ def profile_table(
         ]
         level_columns = [c.levels for c in columns
                          if c.levels is not None and c.spec.role not in ("identifier", "excluded")]
-        associated = pool.map(pairs.association, pairs.association_pairs(level_columns))
-        target_section, target_levels = (None, None)
-        if target is not None:
-            target_section, target_levels = _target_section(by_name[target], table.column(target))
         grouping = None
         if by is not None:
             grouping = _as_levels(by_name[by], table.column(by))
             if grouping.levels > MAX_GROUPS:
                 raise UsageError(f"--by {by}: {grouping.levels} groups; at most {MAX_GROUPS} can be compared")
-        # the target's measures of the numeric inputs need no pair: queued before the pairs
-        leak_numeric = {c.name: pool.submit(_leakage_measure, c, by_name[target], target_levels, {})
-                        for c in columns if target is not None and c.base is not None}
-        correlation = pairs.correlations(numeric, strong, pool.map)
-        association_list = list(associated)
+        correlation = pairs.correlations(numeric, strong, measured=[
+            found.correlated[(a.name, b.name)].result() for a, b in pairs.correlation_pairs(numeric)])
+        association_list = [found.associated[(a.name, b.name)].result()
+                            for a, b in pairs.association_pairs(level_columns)]
         document: dict[str, Any] = {
             "rows": table.num_rows,
             "columns": table.num_columns,
@@ -312,12 +309,14 @@ def profile_table(
             "leakage": [],
         }
         if target is not None:
-            document["target"] = target_section
+            target_levels = found.target_levels
+            document["target"] = found.target_section
             by_pair = {(a["a"], a["b"]): a for a in association_list}
+            leak_numeric = found.leak_numeric
             others = [c for c in columns if c.name not in leak_numeric]
-            found = dict(zip((c.name for c in others), pool.map(
+            measured = dict(zip((c.name for c in others), pool.map(
                 lambda column: _leakage_measure(column, by_name[target], target_levels, by_pair), others)))
-            measures = [leak_numeric[c.name].result() if c.name in leak_numeric else found[c.name]
+            measures = [leak_numeric[c.name].result() if c.name in leak_numeric else measured[c.name]
                         for c in columns]
             document["leakage"] = _leakage(columns, by_name[target], target_levels, correlation["pairs"],
                                            availability or {}, measures)
@@ -330,6 +329,66 @@ def profile_table(
         document["unweighted"] = f"the profile is unweighted; {weight} is a weight variable"
     document["suggestions"] = suggest.suggestions(document, {c.name: c.spec for c in columns})
     return clean(document)
+
+
+class _Pairing:
+    """Waits for the columns and starts each pair's work as soon as both its columns are done: the
+    correlations of numeric columns, the associations of categorical ones, and the target's measure of
+    each numeric column (from the target's section, made here once the target is done). The pairs
+    queue behind the columns still waiting, so the threads never wait for the last column."""
+
+    def __init__(self, table: pa.Table, spec_of: Mapping[str, VariableSpec], target: str | None,
+                 pool: Executor) -> None:
+        self.table = table
+        self.target = target
+        self.pool = pool
+        self.done: dict[str, _Column] = {}
+        numeric = [name for name, spec in spec_of.items()
+                   if spec.type in NUMERIC_TYPES and spec.role not in ("identifier", "excluded")]
+        # the columns correlated (the first numeric ones), by their position among them
+        self.used = {name: i for i, name in enumerate(numeric[:pairs.MAX_NUMERIC_COLUMNS])}
+        self.position = {name: i for i, name in enumerate(spec_of)}
+        self.numeric: list[pairs.NumericColumn] = []
+        self.levels: list[_Column] = []
+        self.correlated: dict[tuple[str, str], Future[dict[str, Any]]] = {}
+        self.associated: dict[tuple[str, str], Future[dict[str, Any]]] = {}
+        self.leak_numeric: dict[str, Future[tuple[str | None, float | None]]] = {}
+        self.target_section: dict[str, Any] | None = None
+        self.target_levels: pairs.LevelColumn | None = None
+
+    def follow(self, running: Mapping[str, Future[_Column]]) -> _Pairing:
+        for future in as_completed(list(running.values())):
+            self._arrived(future.result())
+        return self
+
+    def _arrived(self, column: _Column) -> None:
+        self.done[column.name] = column
+        excluded = column.spec.role in ("identifier", "excluded")
+        if column.name in self.used and column.base is not None:
+            mine = pairs.NumericColumn(column.name, column.base, column.entry["missing"])
+            for other in self.numeric:
+                a, b = sorted((mine, other), key=lambda c: self.used[c.name])
+                self.correlated[(a.name, b.name)] = self.pool.submit(pairs.correlation, (a, b))
+            self.numeric.append(mine)
+        if column.levels is not None and not excluded and 0 < column.levels.levels <= pairs.MAX_PAIR_LEVELS:
+            for other in self.levels:
+                a, b = sorted((column, other), key=lambda c: self.position[c.name])
+                assert a.levels is not None and b.levels is not None
+                self.associated[(a.name, b.name)] = self.pool.submit(pairs.association, (a.levels, b.levels))
+            self.levels.append(column)
+        if self.target is None:
+            return
+        if column.name == self.target:
+            self.target_section, self.target_levels = _target_section(column, self.table.column(self.target))
+            for other in self.done.values():
+                self._measure_leak(other)
+        elif self.target in self.done:
+            self._measure_leak(column)
+
+    def _measure_leak(self, column: _Column) -> None:
+        if column.base is not None:
+            self.leak_numeric[column.name] = self.pool.submit(
+                _leakage_measure, column, self.done[str(self.target)], self.target_levels, {})
 
 
 def clean(value: Any) -> Any:
