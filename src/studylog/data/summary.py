@@ -206,12 +206,13 @@ class LevelCounts:
         self.pending, self.pending_size = [], 0
         if not parts:
             return
-        table = pa.table({
-            "v": pa.concat_arrays([p[0].cast(parts[0][0].type) for p in parts]),
-            "c": pa.array(np.concatenate([p[1] for p in parts]), pa.int64()),
-        })
-        grouped = table.group_by("v").aggregate([("c", "sum")])
-        self.values, self.counts = grouped.column("v").combine_chunks(), grouped.column("c_sum").to_numpy()
+        # the sum of the counts of each value, values in order of first appearance (a dictionary
+        # encoding: no need for Arrow's query engine, whose import alone costs 25 ms)
+        encoded = pa.concat_arrays([p[0].cast(parts[0][0].type) for p in parts]).dictionary_encode()
+        weights = np.concatenate([p[1] for p in parts]).astype(np.float64)
+        index = encoded.indices.to_numpy(zero_copy_only=False)
+        summed = np.bincount(index, weights=weights, minlength=len(encoded.dictionary))
+        self.values, self.counts = encoded.dictionary, np.rint(summed).astype(np.int64)
         if len(self.values) > LEVEL_LIMIT:
             self._go_inexact()
 
