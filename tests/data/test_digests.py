@@ -162,11 +162,18 @@ def test_keys_sharing_their_top_bits_stay_distinct() -> None:
     assert all(pairs[first[f]] == p for f, p in zip(found, pairs))
 
 
-def test_digests_written_to_a_temporary_file_during_the_pass_equal_those_kept_in_memory() -> None:
+def test_digests_written_to_a_temporary_file_during_the_pass_equal_those_kept_in_memory(
+        monkeypatch) -> None:  # type: ignore[no-untyped-def]
     # a large drop's digests wait in a temporary file, chunk by chunk; stored and compared, they must be
     # exactly the digests of the same drop kept in memory (reference: the in-memory digester)
+    monkeypatch.setattr(digests, "CHUNK_ROWS", 7)
     frame = pa.Table.from_pandas(seeded_drop(50, 5), preserve_index=False)
-    kept = records(frame, ["site", "member"])
+    keeper = RecordDigester(["site", "member"], frame.column_names)
+    keeper.spill_limit = 10**9
+    for part in frame.to_batches(max_chunksize=4):
+        keeper.update(part)
+    kept = keeper.finish()
+    assert not isinstance(kept, digests.SpilledRecords)
     digester = RecordDigester(["site", "member"], frame.column_names)
     digester.spill_limit = 6
     for part in frame.to_batches(max_chunksize=4):

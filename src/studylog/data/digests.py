@@ -25,9 +25,9 @@ Collision probability. The digest is not cryptographic; it behaves as a 128-bit 
 (repeats.py), so for n distinct keys the chance that any two share a digest is about n^2 / 2^129 (about
 1.5e-25 for 10 million keys) and the chance that a changed record keeps its row digest about 2^-128.
 
-Memory. Past ``CHUNK_ROWS`` records the digester writes its digests to a temporary file as it goes
-(:class:`SpilledRecords`), and the drop's chunks are made and stored one at a time; the comparison reads
-both drops' digests (32 bytes a record each). The stored format is unchanged (FORMAT 1).
+Memory. Each full chunk of ``CHUNK_ROWS`` records goes to a temporary file as it is filled, already
+in its stored layout (:class:`SpilledRecords`), and the drop's chunks are stored one at a time; the
+comparison reads both drops' digests (32 bytes a record each). The stored format is unchanged (FORMAT 1).
 
 Layout in the store (``digest_chunks``, one drop): ``meta`` (seq 0, JSON: format, key, columns, rows,
 chunk size), then per chunk c of CHUNK_ROWS records in file order (seq 3c + 1, 3c + 2, 3c + 3):
@@ -171,14 +171,17 @@ class Records:
         # ``digest_chunks`` has one seq per (drop, seq): chunk c of each kind takes 3c + 1, + 2, + 3
         for number, start in enumerate(range(0, self.rows, CHUNK_ROWS)):
             stop = min(start + CHUNK_ROWS, self.rows)
-            # lane-major: the chunk's key lanes, then its row lanes (each lane contiguous)
-            lanes = np.ascontiguousarray(self.chunk_digests(start, stop).T, dtype="<u8")
-            yield ("records", 3 * number + 1, lanes.tobytes())
-            del lanes
+            yield ("records", 3 * number + 1, self.records_bytes(number))
             if number < len(self.key_texts):
                 yield ("keys", 3 * number + 2, self.key_texts[number])
             if self.cells is not None:
                 yield ("columns", 3 * number + 3, np.ascontiguousarray(self.cells[start:stop], dtype="<u2").tobytes())
+
+    def records_bytes(self, number: int) -> bytes:
+        """The stored ``records`` chunk ``number``: lane-major, the chunk's key lanes, then its row lanes
+        (each lane contiguous)."""
+        start = number * CHUNK_ROWS
+        return _lane_bytes(self.chunk_digests(start, min(start + CHUNK_ROWS, self.rows)))
 
     @classmethod
     def from_chunks(cls, chunks: Iterable[tuple[str, int, bytes]]) -> Records:
@@ -229,17 +232,21 @@ def _place(digests: np.ndarray, meta: dict[str, Any], seq: int, data: bytes) -> 
 
 
 class SpilledRecords(Records):
-    """:class:`Records` whose digests wait in a temporary file (written chunk by chunk during the pass).
+    """:class:`Records` whose full chunks wait in a temporary file, each as the bytes it is stored as
+    (written during the pass); the last, partial chunk stays in memory.
 
-    ``digests`` reads them all back when asked (the comparison needs them); ``iter_chunks`` reads one
-    chunk at a time, so storing a drop's digests holds one chunk in memory, never the whole drop.
+    ``digests`` reads them all back when asked (the comparison needs them); ``iter_chunks`` hands each
+    chunk's bytes on as read, so storing a drop's digests holds one chunk in memory, never the whole drop.
     """
 
     def __init__(self, key: list[str], columns: list[str], spill: Any, rows: int,
-                 key_texts: list[bytes], cells: np.ndarray | None) -> None:
+                 key_texts: list[bytes], cells: np.ndarray | None, tail: np.ndarray) -> None:
         self.key, self.columns, self.key_texts, self.cells = key, columns, key_texts, cells
         self._spill = spill
         self._rows = rows
+        # (m, 4) digests of the records after the last full chunk
+        self._tail = tail
+        self._spilled = (rows - len(tail)) // CHUNK_ROWS
 
     @property  # type: ignore[override]
     def rows(self) -> int:
@@ -249,14 +256,32 @@ class SpilledRecords(Records):
     def digests(self) -> np.ndarray:
         return self.chunk_digests(0, self._rows)
 
+    def records_bytes(self, number: int) -> bytes:
+        if number >= self._spilled:
+            return _lane_bytes(self._tail)
+        self._spill.seek(number * CHUNK_ROWS * SPILL_RECORD)
+        return self._spill.read(CHUNK_ROWS * SPILL_RECORD)
+
     def chunk_digests(self, start: int, stop: int) -> np.ndarray:
         import numpy as np
 
         stop = min(stop, self._rows)
-        count = max(stop - start, 0)
-        self._spill.seek(start * SPILL_RECORD)
-        out = np.fromfile(self._spill, dtype="<u8", count=4 * count).reshape(count, 4)
-        return out.astype(np.uint64, copy=False)
+        out = np.empty((max(stop - start, 0), 4), dtype=np.uint64, order="F")
+        for number in range(start // CHUNK_ROWS, -(-stop // CHUNK_ROWS)):
+            first = number * CHUNK_ROWS
+            if number >= self._spilled:
+                lanes = self._tail.T
+            else:
+                self._spill.seek(first * SPILL_RECORD)
+                lanes = np.fromfile(self._spill, dtype="<u8", count=4 * CHUNK_ROWS).reshape(4, CHUNK_ROWS)
+            low, high = max(start, first), min(stop, first + lanes.shape[1])
+            out[low - start:high - start] = lanes[:, low - first:high - first].T
+        return out
+
+
+def _lane_bytes(digests: np.ndarray) -> bytes:
+    """(m, 4) digests as stored: lane by lane, little-endian."""
+    return digests.T.astype("<u8", copy=False).tobytes()
 
 
 def lane_major(parts: list[np.ndarray]) -> np.ndarray:
@@ -295,18 +320,29 @@ class RecordDigester:
 
     ``masked``: the key is a direct identifier or sensitive: its texts are not stored and examples show
     "[masked]" (the digests are still kept: they reveal nothing readable).
+
+    The digests of each chunk of ``CHUNK_ROWS`` records are written during the pass straight into the
+    layout they are stored in (lane-major, :meth:`Records.records_bytes`), and the per-cell digests
+    into one array per chunk, so that nothing is concatenated or transposed once the pass is over. A
+    full chunk goes to the temporary file once the full chunks hold more than ``spill_limit`` records
+    (at once, by default).
     """
 
     def __init__(self, key_columns: list[str], all_columns: list[str], *, masked: bool = False) -> None:
         self.key = list(key_columns)
         self.columns = sorted(all_columns)
         self.masked = masked
-        # (m, 4) digests of the batches not yet written to the temporary file
-        self.parts: list[np.ndarray] = []
-        self.pending_rows = 0
+        # the chunk being filled: (4, CHUNK_ROWS) lane-major digests and (CHUNK_ROWS, columns) cell
+        # digests (allocated untouched: only the rows written take memory)
+        self.block: np.ndarray | None = None
+        self.cell_block: np.ndarray | None = None
+        self.filled = 0
+        # full chunks kept in memory (while they hold at most spill_limit records), else in the file
+        self.chunks: list[np.ndarray] = []
+        self.cell_chunks: list[np.ndarray] | None = []
         self.spill: Any = None
-        self.spill_limit = CHUNK_ROWS
-        self.cell_parts: list[np.ndarray] | None = []
+        self.spilled = 0
+        self.spill_limit = 0
         self.texts: list[pa.Array] = []
         self.pending_texts = 0
         self.key_texts: list[bytes] = []
@@ -337,24 +373,55 @@ class RecordDigester:
             key_digests = digest_values(key_cells, [lanes(c) for c in self.key])
             key_text = join_cells(key_cells)
         present = [c for c in self.columns if c in names]
-        row_digests = _stack(combine([lanes(c) for c in present])) if present else \
-            np.zeros((n, 2), np.uint64)
-        self.parts.append(np.hstack([key_digests, row_digests]))
-        self.pending_rows += n
-        if self.pending_rows >= self.spill_limit:
-            self._spill()
-        self.rows += n
-        if self.cell_parts is not None:
-            if self.rows * max(len(self.columns), 1) > COLUMN_DIGEST_CELLS:
-                self.cell_parts = None
-            else:
-                cells = np.zeros((n, len(self.columns)), dtype=np.uint16)
+        zero = np.zeros(n, np.uint64)
+        row_hi, row_lo = combine([lanes(c) for c in present]) if present else (zero, zero)
+        if self.cell_chunks is not None and (self.rows + n) * max(len(self.columns), 1) > COLUMN_DIGEST_CELLS:
+            self.cell_chunks = None
+            self.cell_block = None
+        done = 0
+        while done < n:
+            if self.block is None:
+                self.block = np.empty((4, CHUNK_ROWS), dtype=np.uint64)
+                if self.cell_chunks is not None:
+                    self.cell_block = np.empty((CHUNK_ROWS, len(self.columns)), dtype=np.uint16)
+            take = min(n - done, CHUNK_ROWS - self.filled)
+            rows, here = slice(done, done + take), slice(self.filled, self.filled + take)
+            self.block[0:2, here] = key_digests[rows].T
+            self.block[2, here] = row_hi[rows]
+            self.block[3, here] = row_lo[rows]
+            if self.cell_block is not None:
                 for i, name in enumerate(self.columns):
                     if name in names:
-                        cells[:, i] = (lanes(name)[0] >> np.uint64(48)).astype(np.uint16)
-                self.cell_parts.append(cells)
+                        np.right_shift(lanes(name)[0][rows], np.uint64(48), out=self.cell_block[here, i],
+                                       casting="unsafe")
+                    else:
+                        self.cell_block[here, i] = 0
+            self.filled += take
+            done += take
+            if self.filled == CHUNK_ROWS:
+                self._full_chunk()
+        self.rows += n
         if not self.masked:
             self._add_texts(key_text)
+
+    def _full_chunk(self) -> None:
+        """Put the chunk just filled away: kept, or written to the temporary file as it is stored."""
+        import tempfile
+
+        if self.spill is None and (len(self.chunks) + 1) * CHUNK_ROWS <= self.spill_limit:
+            self.chunks.append(self.block)
+        else:
+            if self.spill is None:
+                self.spill = tempfile.TemporaryFile(prefix="studylog-digests-")  # noqa: SIM115 - kept open
+                for kept in self.chunks:
+                    kept.astype("<u8", copy=False).tofile(self.spill)
+                self.spilled, self.chunks = len(self.chunks), []
+            self.spill.seek(0, 2)
+            self.block.astype("<u8", copy=False).tofile(self.spill)
+            self.spilled += 1
+        if self.cell_chunks is not None and self.cell_block is not None:
+            self.cell_chunks.append(self.cell_block)
+        self.block, self.cell_block, self.filled = None, None, 0
 
     def _add_texts(self, texts: pa.Array) -> None:
         import pyarrow as pa
@@ -364,21 +431,9 @@ class RecordDigester:
         while self.pending_texts >= CHUNK_ROWS:
             joined = pa.concat_arrays([t.cast(pa.large_string()) for t in self.texts])
             self.key_texts.append(_encode_texts(joined.slice(0, CHUNK_ROWS)))
-            rest = joined.slice(CHUNK_ROWS)
+            # a copy of the rest, so that the chunk's texts are let go
+            rest = pa.concat_arrays([joined.slice(CHUNK_ROWS)])
             self.texts, self.pending_texts = [rest], len(rest)
-
-    def _spill(self) -> None:
-        """Write the pending digests to the temporary file (a drop's digests never all wait in memory)."""
-        import tempfile
-
-        import numpy as np
-
-        if self.spill is None:
-            self.spill = tempfile.TemporaryFile(prefix="studylog-digests-")  # noqa: SIM115 - kept open
-        self.spill.seek(0, 2)
-        for part in self.parts:
-            np.ascontiguousarray(part, dtype="<u8").tofile(self.spill)
-        self.parts, self.pending_rows = [], 0
 
     def finish(self) -> Records:
         import numpy as np
@@ -388,17 +443,20 @@ class RecordDigester:
             joined = pa.concat_arrays([t.cast(pa.large_string()) for t in self.texts])
             self.key_texts.append(_encode_texts(joined))
             self.texts, self.pending_texts = [], 0
+        width = len(self.columns)
+        tail = self.block[:, :self.filled].T if self.block is not None else np.zeros((0, 4), np.uint64)
         cells = None
-        if self.cell_parts is not None:
-            cells = (np.concatenate(self.cell_parts) if self.cell_parts
-                     else np.zeros((0, len(self.columns)), dtype=np.uint16))
-            self.cell_parts = []
+        if self.cell_chunks is not None:
+            parts = self.cell_chunks + ([self.cell_block[:self.filled]] if self.cell_block is not None else [])
+            cells = (parts[0] if len(parts) == 1 else np.concatenate(parts) if parts
+                     else np.zeros((0, width), dtype=np.uint16))
+        self.block = self.cell_block = None
+        self.cell_chunks = []
         if self.spill is not None:
-            self._spill()
             self.spill.flush()
-            return SpilledRecords(self.key, self.columns, self.spill, self.rows, self.key_texts, cells)
-        digests = lane_major([part.T for part in self.parts])
-        self.parts = []
+            return SpilledRecords(self.key, self.columns, self.spill, self.rows, self.key_texts, cells, tail)
+        digests = tail if not self.chunks else lane_major(self.chunks + [tail.T])
+        self.chunks = []
         return Records(key=self.key, columns=self.columns, digests=digests,
                        key_texts=self.key_texts, cells=cells)
 
