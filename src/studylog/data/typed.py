@@ -55,12 +55,40 @@ class Parsed:
     invalid: Any
 
 
+def trimmed_strings(strings: Any) -> Any:
+    """``pc.utf8_trim_whitespace(strings)``, or the array itself when no cell can have spaces to trim.
+
+    Only a cell that begins or ends with a byte that may be (part of) a space can change: an ASCII
+    control character or space (0x00 to 0x20), or any byte of a multi-byte character (0x80 and up,
+    which covers Unicode's other spaces). Most columns have none, and trimming copies every text.
+    """
+    import numpy as np
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    if isinstance(strings, pa.ChunkedArray) or not pa.types.is_string(strings.type) or len(strings) == 0:
+        return pc.utf8_trim_whitespace(strings)
+    _, offsets_buffer, data_buffer = strings.buffers()
+    offsets = np.frombuffer(offsets_buffer, dtype=np.int32, count=len(strings) + 1, offset=strings.offset * 4)
+    if data_buffer is None or offsets[-1] == offsets[0]:
+        return strings
+    data = np.frombuffer(data_buffer, dtype=np.uint8)
+    starts, ends = offsets[:-1], offsets[1:]
+    # a null cell has no bytes in a valid array; any cell with bytes is looked at
+    filled = ends > starts
+    first = data[starts[filled]]
+    last = data[ends[filled] - 1]
+    if ((first <= 0x20) | (first >= 0x80) | (last <= 0x20) | (last >= 0x80)).any():
+        return pc.utf8_trim_whitespace(strings)
+    return strings
+
+
 def missing_masks(strings: Any, spec: VariableSpec | None) -> tuple[Any, Any, Any]:
     """(trimmed strings, missing mask, blank mask) for a string column."""
     import pyarrow as pa
     import pyarrow.compute as pc
 
-    trimmed = pc.utf8_trim_whitespace(strings)
+    trimmed = trimmed_strings(strings)
     empty = pc.fill_null(pc.equal(trimmed, ""), True)
     missing = empty
     codes = [c.code.strip() for c in spec.missing_codes] if spec else []
@@ -175,6 +203,34 @@ def _holds_letter_x(strings: Any) -> bool:
     return bool(((np.frombuffer(data, dtype=np.uint8) | 0x20) == ord("x")).any())
 
 
+# bytes that occur in no text of a number (digits, sign, point, exponent): True where refused
+_NOT_IN_NUMBERS_LIST = [chr(b) not in "0123456789+-.eE" for b in range(256)]
+_NOT_IN_NUMBERS: Any = None
+
+
+def _without_cells_holding(strings: Any, refused: Any) -> Any:
+    """The string array with null in place of every cell that holds a byte marked in ``refused``
+    (a 256-entry boolean table; the module-level None stands for the numbers' table, built once)."""
+    import numpy as np
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    if refused is None:
+        refused = np.array(_NOT_IN_NUMBERS_LIST, dtype=bool)
+    _, offsets_buffer, data_buffer = strings.buffers()
+    if data_buffer is None or not pa.types.is_string(strings.type):
+        return strings
+    offsets = np.frombuffer(offsets_buffer, dtype=np.int32, count=len(strings) + 1,
+                            offset=strings.offset * 4).astype(np.int64)
+    data = np.frombuffer(data_buffer, dtype=np.uint8)[offsets[0]:offsets[-1]]
+    # refused bytes before each cell's end, minus those before its start
+    before = np.concatenate([[0], np.cumsum(refused[data], dtype=np.int64)])
+    holding = before[offsets[1:] - offsets[0]] > before[offsets[:-1] - offsets[0]]
+    if not holding.any():
+        return strings
+    return pc.if_else(pa.array(holding), pa.scalar(None, strings.type), strings)
+
+
 def _numbers(present: Any) -> Any:
     """Finite numbers as float64, null where missing or invalid."""
     import pyarrow as pa
@@ -183,6 +239,10 @@ def _numbers(present: Any) -> Any:
     # every text Arrow reads as a float that the pattern refuses ('nan', 'Inf', '+inf') is not finite,
     # so a whole-column cast followed by the finiteness test is the same reading as the pattern's
     values = _whole_cast(present, pa.float64())
+    if values is None:
+        # cells with a character no number has are invalid whatever else they hold: without them the
+        # cast usually succeeds, and the pattern is needed only when it still fails
+        values = _whole_cast(_without_cells_holding(present, _NOT_IN_NUMBERS), pa.float64())
     if values is None:
         ok = pc.match_substring_regex(present, NUMBER_PATTERN)
         values = pc.cast(pc.if_else(ok, present, None), pa.float64())
