@@ -183,6 +183,11 @@ def _integers(present: Any) -> Any:
         values = _whole_cast(present, pa.int64())
         if values is not None and not _holds_letter_x(present):
             return pc.cast(values, pa.float64(), safe=False)
+        if values is None:
+            # as for numbers: without the cells holding a character no integer has (an 'x' among them)
+            values = _whole_cast(_without_cells_holding_other_than(present, INTEGER_CHARACTERS), pa.int64())
+            if values is not None:
+                return pc.cast(values, pa.float64(), safe=False)
     ok = pc.match_substring_regex(present, INTEGER_PATTERN)
     # Arrow's cast refuses a leading '+', which the definition allows
     digits = pc.replace_substring_regex(pc.if_else(ok, present, None), r"^\+|\.0*$", "")
@@ -203,23 +208,22 @@ def _holds_letter_x(strings: Any) -> bool:
     return bool(((np.frombuffer(data, dtype=np.uint8) | 0x20) == ord("x")).any())
 
 
-# bytes that occur in no text of a number (digits, sign, point, exponent): True where refused
-_NOT_IN_NUMBERS_LIST = [chr(b) not in "0123456789+-.eE" for b in range(256)]
-_NOT_IN_NUMBERS: Any = None
+# the characters of the texts of valid integers and numbers (a cell with any other is invalid)
+INTEGER_CHARACTERS = "0123456789+-."
+NUMBER_CHARACTERS = "0123456789+-.eE"
 
 
-def _without_cells_holding(strings: Any, refused: Any) -> Any:
-    """The string array with null in place of every cell that holds a byte marked in ``refused``
-    (a 256-entry boolean table; the module-level None stands for the numbers' table, built once)."""
+def _without_cells_holding_other_than(strings: Any, allowed: str) -> Any:
+    """The string array with null in place of every cell that holds a byte not in ``allowed``."""
     import numpy as np
     import pyarrow as pa
     import pyarrow.compute as pc
 
-    if refused is None:
-        refused = np.array(_NOT_IN_NUMBERS_LIST, dtype=bool)
     _, offsets_buffer, data_buffer = strings.buffers()
     if data_buffer is None or not pa.types.is_string(strings.type):
         return strings
+    refused = np.ones(256, dtype=bool)
+    refused[np.frombuffer(allowed.encode("ascii"), dtype=np.uint8)] = False
     offsets = np.frombuffer(offsets_buffer, dtype=np.int32, count=len(strings) + 1,
                             offset=strings.offset * 4).astype(np.int64)
     data = np.frombuffer(data_buffer, dtype=np.uint8)[offsets[0]:offsets[-1]]
@@ -242,7 +246,7 @@ def _numbers(present: Any) -> Any:
     if values is None:
         # cells with a character no number has are invalid whatever else they hold: without them the
         # cast usually succeeds, and the pattern is needed only when it still fails
-        values = _whole_cast(_without_cells_holding(present, _NOT_IN_NUMBERS), pa.float64())
+        values = _whole_cast(_without_cells_holding_other_than(present, NUMBER_CHARACTERS), pa.float64())
     if values is None:
         ok = pc.match_substring_regex(present, NUMBER_PATTERN)
         values = pc.cast(pc.if_else(ok, present, None), pa.float64())
