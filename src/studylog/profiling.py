@@ -13,7 +13,7 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
-from studylog.data.spec import TableSpec, VariableSpec
+from studylog.data.spec import NUMERIC_TYPES, TableSpec, VariableSpec
 from studylog.errors import NoStudyFound
 from studylog.store.session import StoreLocation
 
@@ -140,31 +140,53 @@ def profile_file(
     location: StoreLocation | None = None,
 ) -> dict[str, Any]:
     """The profile document of one file (the ``profile --json`` contract plus ``file`` and ``source``)."""
+    import queue
     from concurrent.futures import ThreadPoolExecutor
 
     path = Path(path)
+    batches: queue.SimpleQueue[Any] = queue.SimpleQueue()
     with ThreadPoolExecutor(max_workers=1, thread_name_prefix="studylog-read") as reader:
-        reading = reader.submit(_read, path, encoding, sheet)
+        reading = reader.submit(_read, path, encoding, sheet, batches.put)
         # what the profile needs besides the data, imported while the file is read (pyarrow reads
         # outside Python's lock): the computations, and the distributions of the p-values
         from studylog.data import profile, significance
 
         _quietly(significance.tails)
+        # then the numeric reading of each batch read, on the core the parse leaves idle
+        early = profile.EarlyFloats(_blocks(path))
+        while (batch := batches.get()) is not _READ:
+            early.add(batch)
         data = reading.result()
     pool = profile.workers()
     try:
-        return _profile_read(data, path, pool, target=target, by=by, strong=strong, table=table,
+        return _profile_read(data, path, pool, early, target=target, by=by, strong=strong, table=table,
                              location=location)
     finally:
         pool.shutdown()
 
 
-def _read(path: Path, encoding: str | None, sheet: str | None) -> Any:
+_READ = object()  # the reader's last word
+
+
+def _blocks(path: Path) -> float:
+    """How many blocks the whole-file read parses (the batches ``read_table`` tells of)."""
+    from studylog.data.read import WHOLE_BLOCK
+
+    try:
+        return path.stat().st_size / WHOLE_BLOCK
+    except OSError:
+        return 1.0
+
+
+def _read(path: Path, encoding: str | None, sheet: str | None, watch: Callable[[Any], None]) -> Any:
     from studylog.data.read import read_table
     from studylog.data.runtime import arrow_without_pandas
 
-    arrow_without_pandas()
-    return read_table(path, encoding=encoding, sheet=sheet)
+    try:
+        arrow_without_pandas()
+        return read_table(path, encoding=encoding, sheet=sheet, watch=watch)
+    finally:
+        watch(_READ)
 
 
 def _quietly(load: Callable[[], Any]) -> None:
@@ -175,8 +197,8 @@ def _quietly(load: Callable[[], Any]) -> None:
         pass
 
 
-def _profile_read(data: Any, path: Path, pool: Any, *, target: str | None, by: str | None, strong: float,
-                  table: str | None, location: StoreLocation | None) -> dict[str, Any]:
+def _profile_read(data: Any, path: Path, pool: Any, early: Any, *, target: str | None, by: str | None,
+                  strong: float, table: str | None, location: StoreLocation | None) -> dict[str, Any]:
     from studylog.data import profile
 
     columns = list(data.column_names)
@@ -196,9 +218,10 @@ def _profile_read(data: Any, path: Path, pool: Any, *, target: str | None, by: s
         elif known.target in columns:
             target = known.target
     weights = [name for name, spec in specs.items() if spec.role == "weight"]
+    floats = early.take(data, [name for name, spec in specs.items() if spec.type in NUMERIC_TYPES])
     document = profile.profile_table(
         data, specs, target=target, by=by, strong=strong, inferred_missing=inferred_missing,
-        weight=weights[0] if weights else None, availability=availability, pool=pool,
+        weight=weights[0] if weights else None, availability=availability, pool=pool, floats=floats,
     )
     document["file"] = str(path)
     document["source"] = {

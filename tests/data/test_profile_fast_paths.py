@@ -158,3 +158,57 @@ def test_distribution_tails_load_without_the_package_and_leave_it_importable() -
     )
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
     assert done.returncode == 0, done.stderr
+
+
+@settings(max_examples=100, deadline=None)
+@given(st.lists(st.one_of(st.none(), st.sampled_from(["1", "-0", "2.5", "1e300", "nan", "inf", "x", "  3"])),
+                min_size=1, max_size=60),
+       st.lists(st.integers(min_value=1, max_value=25), min_size=1, max_size=8),
+       st.floats(min_value=0.1, max_value=4.0))
+def test_floats_worked_out_batch_by_batch_equal_the_columns_values(values: list[str | None], cuts: list[int],
+                                                                   parts: float) -> None:
+    from studylog.data.profile import EarlyFloats
+
+    texts = pa.array(values, pa.string())
+    numbers = pa.array([v for v in values if v is None or v[:1].isdigit() or v[:1] == "-"], pa.string())
+    table = pa.table({"t": texts, "n": pa.array(numbers.to_pylist() + [None] * (len(texts) - len(numbers)),
+                                                  pa.string())})
+    bounds = sorted({0, len(texts), *(min(c, len(texts)) for c in np.cumsum(cuts))})
+    batches = [table.slice(a, b - a).to_batches()[0] for a, b in zip(bounds, bounds[1:]) if b > a]
+    chunked = pa.Table.from_batches(batches)
+    early = EarlyFloats(parts)
+    for batch in batches:
+        early.add(batch)
+    found = early.take(chunked, ["t", "n"])
+    for name in ("t", "n"):
+        expected = univariate.float_values(chunked.column(name))
+        if expected is None:
+            assert found[name] is None
+        else:
+            assert np.array_equal(found[name], univariate.to_numpy(expected, np.nan), equal_nan=True)
+            assert found[name].tobytes() == univariate.to_numpy(expected, np.nan).tobytes()
+
+
+def test_floats_given_up_with_the_whole_read_are_not_used() -> None:
+    from studylog.data.profile import EarlyFloats
+
+    table = pa.table({"n": pa.array(["1", "2"], pa.string())})
+    early = EarlyFloats()
+    early.add(table.to_batches()[0])
+    early.add(None)
+    assert early.take(table, ["n"]) == {}
+
+
+def test_floats_worked_out_batch_by_batch_grow_past_the_expected_rows() -> None:
+    from studylog.data.profile import EarlyFloats
+
+    rng = np.random.default_rng(RNG_SEED)
+    texts = [None if rng.random() < 0.1 else repr(float(v)) for v in rng.normal(size=5000)]
+    table = pa.table({"x": pa.array(texts, pa.string())})
+    batches = table.to_batches(max_chunksize=500)
+    early = EarlyFloats(1.0)  # ten times fewer rows expected than come
+    for batch in batches:
+        early.add(batch)
+    chunked = pa.Table.from_batches(batches)
+    expected = univariate.to_numpy(univariate.float_values(chunked.column("x")), np.nan)
+    assert early.take(chunked, ["x"])["x"].tobytes() == expected.tobytes()

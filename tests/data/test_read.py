@@ -339,6 +339,27 @@ def test_whole_file_read_of_many_blocks_keeps_row_order(tmp_path: Path, monkeypa
     assert table.equals(_streamed(path))
 
 
+def test_a_watched_whole_file_read_tells_each_chunk_of_data_rows(tmp_path: Path,
+                                                                  monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setattr(read, "WHOLE_BLOCK", 1 << 10)
+    rows = "".join(f"{i},v{i % 7}\n" for i in range(5000))
+    path = write(tmp_path, "x.csv", ("n,v\n" + rows).encode())
+    told: list[pa.RecordBatch | None] = []
+    table = read_table(path, watch=told.append)
+    assert table.equals(read_table(path)) and None not in told
+    assert [batch.num_rows for batch in told] == [len(chunk) for chunk in table.column("n").chunks]
+    assert pa.Table.from_batches(told).rename_columns(table.column_names).equals(table)
+
+
+def test_a_watched_read_given_up_says_so(tmp_path: Path) -> None:
+    # an odd number of quotes sends the file to the streaming reader (a stray quote is legal there)
+    path = write(tmp_path, "x.csv", b'a,b\n1,x"y\n3,4\n')
+    told: list[pa.RecordBatch | None] = []
+    table = read_table(path, watch=told.append)
+    assert told and told[-1] is None
+    assert table.equals(_streamed(path))
+
+
 @pytest.mark.parametrize(
     ("data", "error", "line"),
     [

@@ -18,6 +18,7 @@ from typing import Any
 
 import numpy as np
 import pyarrow as pa
+import pyarrow.compute as pc
 
 from studylog.data import pairs, significance, suggest, univariate
 from studylog.data.spec import LEVEL_TYPES, NUMERIC_TYPES, VariableSpec
@@ -59,6 +60,69 @@ def _ordinal_rank(levels: Sequence[str], spec: VariableSpec) -> np.ndarray:
     return rank
 
 
+class EarlyFloats:
+    """Each column's texts as float64 values with NaN for nulls (``univariate.float_values``, then
+    ``to_numpy``), worked out a batch at a time while the file is still being read, on the core the
+    single-threaded parse leaves idle. A column is no longer tried from its first batch that does
+    not read as numbers. Casting is per value, so the batches' values joined are exactly the
+    column's. Each column's values go to one array of its own, sized from the first batch's share
+    of the file (``parts``: the number of batches expected): no memory is held per batch."""
+
+    def __init__(self, parts: float = 1.0) -> None:
+        self._expected = max(parts, 1.0)
+        self._values: list[np.ndarray | None] = []
+        self._rows = 0
+        self._lengths: list[int] = []
+        self._usable = True
+
+    def add(self, batch: pa.RecordBatch | None) -> None:
+        """One batch of rows, in order; None: the batches so far stand for nothing (see read_table)."""
+        if batch is None:
+            self._usable = False
+            self._values = []
+            return
+        if not self._usable:
+            return
+        rows = batch.num_rows
+        if not self._lengths:
+            room = int(max(rows, 1) * self._expected * 1.05) + rows + 1024
+            self._values = [np.empty(room) for _ in range(batch.num_columns)]
+        start, end = self._rows, self._rows + rows
+        for position, values in enumerate(self._values):
+            if values is None:
+                continue
+            try:
+                floats = pc.cast(batch.column(position), pa.float64())
+            except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
+                self._values[position] = None
+                continue
+            if end > values.size:
+                grown = np.empty(max(end, int(values.size * 1.5)))
+                grown[:start] = values[:start]
+                self._values[position] = values = grown
+            # as to_numpy: the values, then NaN where null
+            values[start:end] = univariate._values(floats, np.float64)
+            if floats.null_count:
+                values[start:end][univariate._as_bool(pc.is_null(floats))] = np.nan
+        self._rows = end
+        self._lengths.append(rows)
+
+    def take(self, table: pa.Table, names: Sequence[str]) -> dict[str, np.ndarray | None]:
+        """For the columns ``names`` of ``table`` (the table read): their values, or None when a
+        column does not read as numbers; only when the batches are the table's chunks. The work is
+        forgotten here."""
+        values_of = self._values if self._usable and len(self._values) == table.num_columns else []
+        self._values = []
+        if not values_of or self._lengths != [len(chunk) for chunk in table.column(0).chunks]:
+            return {}
+        position = {name: i for i, name in enumerate(table.column_names)}
+        found: dict[str, np.ndarray | None] = {}
+        for name in names:
+            values = values_of[position[name]]
+            found[name] = None if values is None else values[:self._rows]
+        return found
+
+
 class _Column:
     """What the pair and target steps need from one profiled column."""
 
@@ -70,8 +134,11 @@ class _Column:
         self.levels: pairs.LevelColumn | None = None
 
 
+_UNKNOWN: Any = object()
+
+
 def _profile_column(name: str, strings: pa.ChunkedArray, spec: VariableSpec,
-                    inferred_codes: Sequence[str]) -> _Column:
+                    inferred_codes: Sequence[str], known_floats: Any = _UNKNOWN) -> _Column:
     declared = [code.code for code in spec.missing_codes]
     extra = [code for code in inferred_codes if code not in declared]
     kind = spec.type
@@ -82,7 +149,9 @@ def _profile_column(name: str, strings: pa.ChunkedArray, spec: VariableSpec,
         encoded = univariate.Encoded.of(strings)
         missing, level_codes, level_counts = univariate.find_missing_encoded(encoded, declared + extra)
     else:
-        if kind in NUMERIC_TYPES:
+        if kind in NUMERIC_TYPES and known_floats is not _UNKNOWN:
+            floats = known_floats
+        elif kind in NUMERIC_TYPES:
             floats = univariate.float_values(strings)
         elif kind in ("date", "datetime") and univariate.date_format(spec, kind) == "%Y-%m-%d":
             dates = univariate.iso_dates(strings)
@@ -258,9 +327,12 @@ def profile_table(
     weight: str | None = None,
     availability: Mapping[str, str] | None = None,
     pool: Executor | None = None,
+    floats: dict[str, np.ndarray | None] | None = None,
 ) -> dict[str, Any]:
     """The whole profile as the contract's JSON document (numbers may still be numpy/NaN: see clean).
-    ``pool``: the threads to use (default: ``workers()``, shut down at the end)."""
+    ``pool``: the threads to use (default: ``workers()``, shut down at the end). ``floats``: some
+    numeric columns' values known already (``EarlyFloats.take``); emptied here, so that each is
+    freed once its column is done."""
     names = list(table.column_names)
     for option, name in (("--target", target), ("--by", by)):
         if name is not None and name not in names:
@@ -275,9 +347,11 @@ def profile_table(
         # columns are independent and numpy/Arrow release the GIL in their loops: one pool for every
         # column and pair, the costly columns first (also the ones whose passing copies are largest,
         # made before the numeric columns' sorts are held)
+        known = floats if floats is not None else {}
         running = {name: pool.submit(_profile_column, name, table.column(name), spec_of[name],
-                                     inferred_missing.get(name, ()))
+                                     inferred_missing.get(name, ()), known.pop(name, _UNKNOWN))
                    for name in sorted(names, key=lambda name: -COST.get(spec_of[name].type, 1))}
+        known.clear()
         found = _Pairing(table, spec_of, target, pool).follow(running)
         columns = [found.done[name] for name in names]
         by_name = found.done

@@ -31,6 +31,8 @@ if TYPE_CHECKING:
     import pyarrow as pa
 
 Progress = Callable[[int, int], None]
+# told each batch of data rows as a CSV is read at once, then None if that read is given up
+Watch = Callable[["pa.RecordBatch | None"], None]
 
 CSV_EXTENSIONS = {".csv": "csv", ".txt": "csv", ".tsv": "tsv", ".tab": "tsv"}
 PARQUET_EXTENSIONS = {".parquet", ".pq"}
@@ -168,16 +170,22 @@ def read_table(
     sheet: str | None = None,
     batch_rows: int = 65_536,
     progress: Progress | None = None,
+    watch: Watch | None = None,
 ) -> pa.Table:
     """The whole file as one table of string columns.
 
     A CSV is read at once and its header taken from the table (the check of the header and of a data
     row is the same as ``open_source``'s); anything unusual, and every other format, takes the way of
-    ``open_source``, whose errors are then the same as a check's."""
+    ``open_source``, whose errors are then the same as a check's. ``watch`` (CSV without progress) is
+    told each batch of data rows of that read as it comes, positionally named: the table's chunks in
+    their order; and None if the read is given up (the rows then come from the streaming reader, and
+    what it was told stands for nothing)."""
     file = Path(path)
     if progress is None and file.suffix.lower() in CSV_EXTENSIONS:
         source = _open(file, encoding, sheet, batch_rows, progress, probe=False)
-        table = _csv_whole(source)
+        table = _csv_whole(source, watch)
+        if table is None and watch is not None:
+            watch(None)
         if table is not None:
             header = [table.column(i)[0].as_py() for i in range(table.num_columns)]
             source.columns = check_names(file, header, 1)
@@ -420,7 +428,7 @@ def _csv_reader(source: Source, width: int, block: int, handle: _WatchedFile) ->
     return pacsv.open_csv(handle, **_csv_options(source, width, block, threads=False))
 
 
-def _csv_whole(source: Source) -> pa.Table | None:
+def _csv_whole(source: Source, watch: Watch | None = None) -> pa.Table | None:
     """The whole CSV in one read, header row first, or None when the read meets anything unusual.
 
     A caller that needs every row at once (profile, draft) holds the whole table anyway, so the
@@ -432,6 +440,7 @@ def _csv_whole(source: Source) -> pa.Table | None:
     looks for NUL bytes and counts quotes: the read then never waits for Python's lock, and other
     threads of the caller work meanwhile. One parsing thread: a multithreaded parse of a file on two
     cores saved little time for half as much CPU again, which the caller's other threads lacked.
+    ``watch``: see ``read_table`` (the caller is told of a read given up).
     """
     import pyarrow as pa
 
@@ -453,7 +462,7 @@ def _csv_whole(source: Source) -> pa.Table | None:
             scanned = pool.submit(_scan_bytes, source.path, watch_nul, utf8)
             try:
                 with pa.OSFile(str(source.path)) as native:
-                    table = _read_whole(native, options)
+                    table = _read_whole(native, options, watch)
             except OSError:
                 table = None
             try:
@@ -465,12 +474,21 @@ def _csv_whole(source: Source) -> pa.Table | None:
     return table
 
 
-def _read_whole(handle: Any, options: dict[str, Any]) -> pa.Table | None:
+def _read_whole(handle: Any, options: dict[str, Any], watch: Watch | None = None) -> pa.Table | None:
     import pyarrow as pa
     import pyarrow.csv as pacsv
 
     try:
-        return pacsv.read_csv(handle, **options)
+        if watch is None:
+            return pacsv.read_csv(handle, **options)
+        # the same parse a batch at a time (as fast), so that the watcher can work on each batch
+        # while the next is parsed
+        reader = pacsv.open_csv(handle, **options)
+        batches = []
+        for batch in reader:
+            watch(batch.slice(1) if not batches else batch)  # the header row is no data
+            batches.append(batch)
+        return pa.Table.from_batches(batches, schema=reader.schema)
     except StudylogError:
         raise
     except (pa.ArrowException, UnicodeError, OSError, ValueError, LookupError):

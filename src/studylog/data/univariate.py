@@ -393,12 +393,15 @@ def float_values(strings: pa.ChunkedArray) -> pa.ChunkedArray | None:
 
 
 def parse_numbers(strings: pa.ChunkedArray, missing: np.ndarray,
-                  floats: pa.ChunkedArray | None = None) -> tuple[np.ndarray, np.ndarray]:
+                  floats: pa.ChunkedArray | np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Float values (NaN where missing or not a number) and the mask of present cells that failed.
-    ``floats``: ``float_values(strings)`` when the caller has it."""
+    ``floats``: ``float_values(strings)`` when the caller has it, or its values as ``to_numpy`` gives
+    them with NaN for nulls (then used in place)."""
     if floats is None:
         floats = float_values(strings)
-    if floats is not None:
+    if isinstance(floats, np.ndarray):
+        values = floats
+    elif floats is not None:
         values = _writable_floats(floats)
     else:
         # the slow path: some cell is not a number (a code, a typo, spaces); parse what matches
