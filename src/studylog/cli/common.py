@@ -5,9 +5,9 @@ from __future__ import annotations
 from collections.abc import Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import typer
-from sqlalchemy.orm import Session
 
 from studylog.store.session import StoreLocation, locate, transaction
 
@@ -17,6 +17,9 @@ class Options:
     store: str | None = None
     debug: bool = False
 
+
+if TYPE_CHECKING:
+    from sqlalchemy.orm import Session
 
 options = Options()
 
