@@ -154,8 +154,18 @@ def profile_file(
         _quietly(significance.tails)
         # then the numeric reading of each batch read, on the core the parse leaves idle
         early = profile.EarlyFloats(_blocks(path))
-        while (batch := batches.get()) is not _READ:
-            early.add(batch)
+        while True:
+            come = [batches.get()]
+            while not batches.empty():
+                come.append(batches.get())
+            ended = come[-1] is _READ
+            for part in _split(come[:-1] if ended else come):
+                if part is None:
+                    early.give_up()
+                else:
+                    early.add(part)
+            if ended:
+                break
         data = reading.result()
     pool = profile.workers()
     try:
@@ -166,6 +176,19 @@ def profile_file(
 
 
 _READ = object()  # the reader's last word
+
+
+def _split(told: list[Any]) -> list[Any]:
+    """The batches told, in runs between the Nones (a read given up), which stay as they are."""
+    runs: list[Any] = []
+    for item in told:
+        if item is None:
+            runs.append(None)
+        elif runs and runs[-1] is not None:
+            runs[-1].append(item)
+        else:
+            runs.append([item])
+    return runs
 
 
 def _blocks(path: Path) -> float:

@@ -75,24 +75,22 @@ class EarlyFloats:
         self._lengths: list[int] = []
         self._usable = True
 
-    def add(self, batch: pa.RecordBatch | None) -> None:
-        """One batch of rows, in order; None: the batches so far stand for nothing (see read_table)."""
-        if batch is None:
-            self._usable = False
-            self._values = []
+    def add(self, batches: Sequence[pa.RecordBatch]) -> None:
+        """The next batches of rows, in order (as many as have come: the fewer the calls, the less
+        time in Python)."""
+        if not self._usable or not batches:
             return
-        if not self._usable:
-            return
-        rows = batch.num_rows
+        rows = sum(batch.num_rows for batch in batches)
         if not self._lengths:
-            room = int(max(rows, 1) * self._expected * 1.05) + rows + 1024
-            self._values = [np.empty(room) for _ in range(batch.num_columns)]
+            room = int(max(batches[0].num_rows, 1) * self._expected * 1.05) + rows + 1024
+            self._values = [np.empty(room) for _ in range(batches[0].num_columns)]
         start, end = self._rows, self._rows + rows
         for position, values in enumerate(self._values):
             if values is None:
                 continue
+            texts = pa.chunked_array([batch.column(position) for batch in batches], pa.string())
             try:
-                floats = pc.cast(batch.column(position), pa.float64())
+                floats = pc.cast(texts, pa.float64())
             except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
                 self._values[position] = None
                 continue
@@ -100,12 +98,18 @@ class EarlyFloats:
                 grown = np.empty(max(end, int(values.size * 1.5)))
                 grown[:start] = values[:start]
                 self._values[position] = values = grown
-            # as to_numpy: the values, then NaN where null
-            values[start:end] = univariate._values(floats, np.float64)
+            # as to_numpy: NaN where null
             if floats.null_count:
-                values[start:end][univariate._as_bool(pc.is_null(floats))] = np.nan
+                floats = pc.fill_null(floats, np.nan)
+            np.concatenate([univariate._values(chunk, np.float64) for chunk in floats.chunks],
+                           out=values[start:end])
         self._rows = end
-        self._lengths.append(rows)
+        self._lengths.extend(batch.num_rows for batch in batches)
+
+    def give_up(self) -> None:
+        """The batches so far stand for nothing (see read_table)."""
+        self._usable = False
+        self._values = []
 
     def take(self, table: pa.Table, names: Sequence[str]) -> dict[str, np.ndarray | None]:
         """For the columns ``names`` of ``table`` (the table read): their values, or None when a
