@@ -252,3 +252,13 @@ def test_a_pair_unique_only_in_the_first_rows_is_no_key(monkeypatch: pytest.Monk
     })
     assert infer_table(table).key == []
     assert table.to_pandas().duplicated().sum() == 1  # reference: pandas sees the repeat too
+
+
+def test_empty_cells_among_the_values_change_neither_counts_nor_order() -> None:
+    values = ["  ", "b", None, "a ", "", " b", "c", None, "a", "   ", "d@x.org"] * 3
+    without = [v.strip() for v in values if v is not None and v.strip()]
+    got, plain = column(values), column(without)
+    assert got.evidence.present == plain.evidence.present == len(without)
+    assert got.evidence.empty == len(values) - len(without)
+    assert (got.type, got.levels, got.evidence.examples) == (plain.type, plain.levels, plain.evidence.examples)
+    assert column([None, "", "  "]).evidence.notes == ["no values other than empty cells and missing codes"]

@@ -187,6 +187,16 @@ class _Values:
     values: pa.Array
     counts: pa.Array
     total: int
+    _matched: dict[str, pa.Array] = field(default_factory=dict, repr=False)
+
+    def matches(self, pattern: str) -> pa.Array:
+        """Which values match ``pattern`` (asked once: several attempts test the same patterns)."""
+        import pyarrow.compute as pc
+
+        found = self._matched.get(pattern)
+        if found is None:
+            found = self._matched[pattern] = pc.match_substring_regex(self.values, pattern)
+        return found
 
     def weight(self, mask: pa.Array) -> int:
         import pyarrow.compute as pc
@@ -228,12 +238,16 @@ def infer_column(name: str, column: pa.ChunkedArray | pa.Array, rows: int) -> Pr
     if not (pa.types.is_string(column.type) or pa.types.is_large_string(column.type)):
         column = column.cast(pa.string())
     trimmed = pc.utf8_trim_whitespace(column)
-    present_mask = pc.and_(pc.is_valid(trimmed), pc.not_equal(trimmed, ""))
-    counted = pc.value_counts(pc.filter(trimmed, present_mask))
+    # counted with the empty cells (null, and "" once trimmed), which are then left out: the others
+    # keep the order of their first appearance, as if the empty cells had been filtered out first
+    counted = pc.value_counts(trimmed)
     if isinstance(counted, pa.ChunkedArray):
         counted = counted.combine_chunks()
     values = counted.field("values").cast(pa.string())
     counts = counted.field("counts")
+    present = pc.fill_null(pc.not_equal(values, ""), False)
+    if not pc.all(present).as_py():
+        values, counts = pc.filter(values, present), pc.filter(counts, present)
     everything = _Values(values, counts, int(pc.sum(counts).as_py() or 0))
     present = everything.total
     evidence = Evidence(rows=rows, present=present, empty=rows - present, distinct=0, parsed=0,
@@ -322,13 +336,12 @@ def _as_integer(proposal: Proposal, rest: _Values) -> bool:
     import pyarrow as pa
     import pyarrow.compute as pc
 
-    fits = pc.match_substring_regex(rest.values, INTEGER_PATTERN)
-    sentinels = pc.and_(fits, pc.match_substring_regex(rest.values, SENTINEL_PATTERN))
+    fits = rest.matches(INTEGER_PATTERN)
     if not _accepted(rest.weight(fits), rest.total):
-        leading = pc.match_substring_regex(rest.values, LEADING_ZEROS)
-        if rest.weight(leading):
+        if rest.weight(rest.matches(LEADING_ZEROS)):
             proposal.evidence.notes.append("whole numbers with leading zeros are read as codes, not numbers")
         return False
+    sentinels = pc.and_(fits, rest.matches(SENTINEL_PATTERN))
     codes, why = _standing_apart(rest, fits, sentinels)
     good = _record(proposal, _drop_codes(proposal, rest, codes, why), _fits(rest, codes, fits), "integer")
     numbers = pc.cast(good.values, pa.int64())
@@ -350,14 +363,14 @@ def _as_number(proposal: Proposal, rest: _Values) -> bool:
     import pyarrow as pa
     import pyarrow.compute as pc
 
-    if pc.any(pc.match_substring_regex(rest.values, LEADING_ZEROS)).as_py():
+    if pc.any(rest.matches(LEADING_ZEROS)).as_py():
         return False  # codes such as postcodes: their zeros matter
-    shaped = pc.match_substring_regex(rest.values, NUMBER_PATTERN)
+    shaped = rest.matches(NUMBER_PATTERN)
     as_float = pc.cast(pc.if_else(shaped, rest.values, None), pa.float64())
     fits = pc.fill_null(pc.is_finite(as_float), False)
     if not _accepted(rest.weight(fits), rest.total):
         return False
-    sentinels = pc.and_(fits, pc.match_substring_regex(rest.values, SENTINEL_PATTERN))
+    sentinels = pc.and_(fits, rest.matches(SENTINEL_PATTERN))
     codes, why = _standing_apart(rest, fits, sentinels)
     good = _record(proposal, _drop_codes(proposal, rest, codes, why), _fits(rest, codes, fits), "number")
     low, high = pc.min_max(pc.cast(good.values, pa.float64())).values()
@@ -549,12 +562,21 @@ def _propose_sensitivity(proposal: Proposal, rest: _Values) -> None:
     if DIRECT_IDENTIFIER_NAMES.match(name):
         proposal.sensitivity = "direct-identifier"
         proposal.evidence.notes.append("the name suggests a direct identifier")
-    elif rest.weight(pc.match_substring_regex(rest.values, EMAIL_PATTERN)) >= 0.5 * rest.total:
+    elif _emails(rest) >= 0.5 * rest.total:
         proposal.sensitivity = "direct-identifier"
         proposal.evidence.notes.append("the values look like e-mail addresses")
     elif QUASI_IDENTIFIER_NAMES.match(name):
         proposal.sensitivity = "quasi-identifier"
         proposal.evidence.notes.append("the name suggests a quasi-identifier")
+
+
+def _emails(rest: _Values) -> int:
+    """How many values look like e-mail addresses (none without an @, which is looked for first)."""
+    import pyarrow.compute as pc
+
+    if not pc.any(pc.match_substring(rest.values, "@")).as_py():
+        return 0
+    return rest.weight(rest.matches(EMAIL_PATTERN))
 
 
 KEY_TYPES = ("identifier", "integer", "categorical", "ordinal", "date", "datetime", "boolean")
