@@ -82,9 +82,9 @@ MASKED_TYPES = ("text", "identifier")
 
 # The statistical definitions studylog's profiles and checks use (DESIGN.md, "Statistical definitions").
 DEFINITIONS = [
-    "Quartiles and deciles by linear interpolation (Hyndman and Fan 1996, type 7); for drops too large "
-    "to hold in memory, from a KLL quantile sketch (Apache DataSketches, k = 200) whose normalised rank "
-    "error bound is stated with the profile.",
+    "Quartiles and deciles by linear interpolation (Hyndman and Fan 1996, type 7), exact; in a checked "
+    "drop's stored profile, a column of more than 100,000 distinct values has them from a KLL quantile "
+    "sketch (Apache DataSketches, k = 200) whose normalised rank error bound is stated with the profile.",
     "Tukey's fences at 1.5 and 3 times the spread between Tukey's hinges, as box plots draw them.",
     "Standard deviation with n − 1 in the denominator; skewness as the adjusted Fisher–Pearson "
     "coefficient G1.",
