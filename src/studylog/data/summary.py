@@ -398,8 +398,6 @@ class ColumnSummary:
         import pyarrow as pa
         import pyarrow.compute as pc
 
-        from studylog.data.typed import trimmed_strings
-
         if isinstance(strings, pa.ChunkedArray):
             strings = strings.combine_chunks()
         if not pa.types.is_string(strings.type) and not pa.types.is_large_string(strings.type):
@@ -408,7 +406,7 @@ class ColumnSummary:
             self._update_parsed(strings, parsed, digests, encoded)
             return
         self.rows += len(strings)
-        trimmed = trimmed_strings(strings)
+        trimmed = pc.utf8_trim_whitespace(strings)
         empty = pc.fill_null(pc.equal(trimmed, ""), True)
         missing = empty
         self.empty += int(pc.sum(empty).as_py() or 0)

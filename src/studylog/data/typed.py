@@ -55,40 +55,12 @@ class Parsed:
     invalid: Any
 
 
-def trimmed_strings(strings: Any) -> Any:
-    """``pc.utf8_trim_whitespace(strings)``, or the array itself when no cell can have spaces to trim.
-
-    Only a cell that begins or ends with a byte that may be (part of) a space can change: an ASCII
-    control character or space (0x00 to 0x20), or any byte of a multi-byte character (0x80 and up,
-    which covers Unicode's other spaces). Most columns have none, and trimming copies every text.
-    """
-    import numpy as np
-    import pyarrow as pa
-    import pyarrow.compute as pc
-
-    if isinstance(strings, pa.ChunkedArray) or not pa.types.is_string(strings.type) or len(strings) == 0:
-        return pc.utf8_trim_whitespace(strings)
-    _, offsets_buffer, data_buffer = strings.buffers()
-    offsets = np.frombuffer(offsets_buffer, dtype=np.int32, count=len(strings) + 1, offset=strings.offset * 4)
-    if data_buffer is None or offsets[-1] == offsets[0]:
-        return strings
-    data = np.frombuffer(data_buffer, dtype=np.uint8)
-    starts, ends = offsets[:-1], offsets[1:]
-    # a null cell has no bytes in a valid array; any cell with bytes is looked at
-    filled = ends > starts
-    first = data[starts[filled]]
-    last = data[ends[filled] - 1]
-    if ((first <= 0x20) | (first >= 0x80) | (last <= 0x20) | (last >= 0x80)).any():
-        return pc.utf8_trim_whitespace(strings)
-    return strings
-
-
 def missing_masks(strings: Any, spec: VariableSpec | None) -> tuple[Any, Any, Any]:
     """(trimmed strings, missing mask, blank mask) for a string column."""
     import pyarrow as pa
     import pyarrow.compute as pc
 
-    trimmed = trimmed_strings(strings)
+    trimmed = pc.utf8_trim_whitespace(strings)
     empty = pc.fill_null(pc.equal(trimmed, ""), True)
     missing = empty
     codes = [c.code.strip() for c in spec.missing_codes] if spec else []
