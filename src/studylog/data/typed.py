@@ -196,14 +196,14 @@ def _without_cells_holding_other_than(strings: Any, allowed: str) -> Any:
         return strings
     refused = np.ones(256, dtype=bool)
     refused[np.frombuffer(allowed.encode("ascii"), dtype=np.uint8)] = False
-    offsets = np.frombuffer(offsets_buffer, dtype=np.int32, count=len(strings) + 1,
-                            offset=strings.offset * 4).astype(np.int64)
+    offsets = np.frombuffer(offsets_buffer, dtype=np.int32, count=len(strings) + 1, offset=strings.offset * 4)
     data = np.frombuffer(data_buffer, dtype=np.uint8)[offsets[0]:offsets[-1]]
-    # refused bytes before each cell's end, minus those before its start
-    before = np.concatenate([[0], np.cumsum(refused[data], dtype=np.int64)])
-    holding = before[offsets[1:] - offsets[0]] > before[offsets[:-1] - offsets[0]]
-    if not holding.any():
+    # the few refused bytes, and the cells they fall in
+    where = np.flatnonzero(refused[data]) + offsets[0]
+    if len(where) == 0:
         return strings
+    holding = np.zeros(len(strings), dtype=bool)
+    holding[np.searchsorted(offsets, where, side="right") - 1] = True
     return pc.if_else(pa.array(holding), pa.scalar(None, strings.type), strings)
 
 
