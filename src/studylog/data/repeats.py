@@ -18,6 +18,7 @@ A missing cell (null) has its own digest, different from that of every text.
 
 from __future__ import annotations
 
+import os
 from collections.abc import Sequence
 from typing import TYPE_CHECKING, Any
 
@@ -277,8 +278,11 @@ class SeenDigests:
     repeat of the whole 64-bit lane: the same answers as a set held in memory.
     """
 
-    def __init__(self) -> None:
+    def __init__(self, *, on_disk: bool = False) -> None:
         self.runs: list[Any] = []
+        # large runs wholly in temporary files (:class:`_OnDisk`), for a set looked up only for a few
+        # rows of each batch (``observe(..., looked_up=...)``)
+        self.on_disk = on_disk
 
     def __len__(self) -> int:
         return sum(len(run) for run in self.runs)
@@ -288,10 +292,13 @@ class SeenDigests:
         """Bytes held in memory (the low halves of large runs are in temporary files)."""
         return sum(run.nbytes for run in self.runs)
 
-    def observe(self, hi: np.ndarray, lo: np.ndarray | None = None) -> np.ndarray:
+    def observe(self, hi: np.ndarray, lo: np.ndarray | None = None, *,
+                looked_up: np.ndarray | None = None) -> np.ndarray:
         """A boolean mask: True where the digest repeats one seen before (the first occurrence is False).
 
         Only the first lane ``hi`` is remembered (``lo`` is accepted for the callers' convenience).
+        ``looked_up``: a mask of the rows that may repeat a digest of an earlier batch; the others are
+        only compared within the batch (all are remembered). None: every row may.
         """
         import numpy as np
 
@@ -310,8 +317,17 @@ class SeenDigests:
             group = np.cumsum(~seen_sorted) - 1
             earliest = np.minimum.reduceat(order, np.flatnonzero(~seen_sorted))
             seen_sorted = order != earliest[group]
-        for run in self.runs:
-            seen_sorted |= _contains(run, sorted_hi)
+        if looked_up is None:
+            for run in self.runs:
+                seen_sorted |= _contains(run, sorted_hi)
+        elif self.runs:
+            asked = np.flatnonzero(looked_up[order] & ~seen_sorted)
+            if len(asked):
+                needles = sorted_hi[asked]
+                found = np.zeros(len(asked), dtype=bool)
+                for run in self.runs:
+                    found |= _contains(run, needles)
+                seen_sorted[asked] |= found
         repeat[order] = seen_sorted
         self._add(sorted_hi[~seen_sorted])
         return repeat
@@ -321,12 +337,13 @@ class SeenDigests:
 
         if len(values) == 0:
             return
-        self.runs.append(_kept(np.ascontiguousarray(values, dtype=np.uint64)))
+        kind = _OnDisk if self.on_disk else _Halves
+        self.runs.append(_kept(np.ascontiguousarray(values, dtype=np.uint64), kind))
         while len(self.runs) > 1:
             a, b = self.runs[-2], self.runs[-1]
             if len(a) > MERGE_RATIO * len(b) or len(a) + len(b) > MERGE_LIMIT:
                 break
-            self.runs[-2:] = [_merged(a, b)]
+            self.runs[-2:] = [_merged(a, b, kind)]
             _close(a)
             _close(b)
 
@@ -383,27 +400,110 @@ class _Halves:
         return out
 
     def lows(self, positions: np.ndarray) -> np.ndarray:
-        """The low halves of the entries at these positions (read through a map of the file, let go at
-        once so that its pages do not stay in the process's memory)."""
+        """The low halves of the entries at these positions."""
         import numpy as np
 
-        self.file.flush()
-        mapped = np.memmap(self.file, dtype="<u4", mode="r", shape=(len(self.top),))
-        try:
-            return np.asarray(mapped[positions], dtype=np.uint64)
-        finally:
-            mapped._mmap.close()  # type: ignore[attr-defined]
-            del mapped
+        return _read_at(self.file, np.dtype("<u4"), positions).astype(np.uint64)
 
     def close(self) -> None:
         self.file.close()
 
 
-def _kept(values: np.ndarray) -> Any:
-    """A new sorted run as it is kept: in memory while short, else split into halves."""
+class _OnDisk:
+    """A sorted run of 64-bit digests wholly in a temporary file; every ``READ_BLOCK``-th value stays in
+    memory, so that a lookup reads only the blocks its needles fall in."""
+
+    def __init__(self, size: int) -> None:
+        import tempfile
+
+        self.size = size
+        self.file = tempfile.TemporaryFile(prefix="studylog-seen-")  # noqa: SIM115 - kept open
+        self.filled = 0
+        self.fences: list[np.ndarray] = []
+
+    def append(self, values: np.ndarray) -> None:
+        first = -self.filled % READ_BLOCK
+        self.fences.append(values[first::READ_BLOCK].copy())
+        values.astype("<u8", copy=False).tofile(self.file)
+        self.filled += len(values)
+
+    def __len__(self) -> int:
+        return self.size
+
+    @property
+    def nbytes(self) -> int:
+        return sum(f.nbytes for f in self.fences)
+
+    def values(self, start: int, stop: int) -> np.ndarray:
+        import numpy as np
+
+        data = os.pread(self.file.fileno(), 8 * (stop - start), 8 * start)
+        return np.frombuffer(data, dtype="<u8").astype(np.uint64, copy=False)
+
+    def contains(self, needles: np.ndarray) -> np.ndarray:
+        import numpy as np
+
+        if len(self.fences) > 1:
+            self.fences = [np.concatenate(self.fences)]
+        self.file.flush()
+        fence = self.fences[0]
+        found = np.zeros(len(needles), dtype=bool)
+        # the block whose first value is the last one at most the needle (none: the needle is smaller
+        # than every value)
+        block = np.searchsorted(fence, needles, side="right") - 1
+        inside = np.flatnonzero(block >= 0)
+        if not len(inside):
+            return found
+        order = inside[np.argsort(block[inside], kind="stable")]
+        blocks = block[order]
+        starts = np.flatnonzero(np.r_[True, blocks[1:] != blocks[:-1]])
+        for start, stop in zip(starts, np.r_[starts[1:], len(order)]):
+            which = order[start:stop]
+            data = self.values(int(blocks[start]) * READ_BLOCK,
+                               min((int(blocks[start]) + 1) * READ_BLOCK, self.size))
+            position = np.minimum(np.searchsorted(data, needles[which]), len(data) - 1)
+            found[which] = data[position] == needles[which]
+        return found
+
+    def close(self) -> None:
+        self.file.close()
+
+
+# entries read at a time from a run's temporary file, to look a few up
+READ_BLOCK = 4096
+
+
+def _read_at(file: Any, dtype: np.dtype, positions: np.ndarray) -> np.ndarray:
+    """The entries of a file of ``dtype`` values at these positions, read a block at a time.
+
+    Ordinary reads, not a map of the file: a mapped file puts the pages around each one read into the
+    process's resident memory. One read per block touched (the positions are few: repeats, and the
+    rare digests whose high half another digest shares).
+    """
+    import numpy as np
+
+    out = np.empty(len(positions), dtype=dtype)
+    if not len(positions):
+        return out
+    order = np.argsort(positions, kind="stable")
+    ordered = positions[order]
+    blocks = ordered // READ_BLOCK
+    starts = np.flatnonzero(np.r_[True, blocks[1:] != blocks[:-1]])
+    stops = np.r_[starts[1:], len(ordered)]
+    handle = file.fileno()
+    for start, stop in zip(starts.tolist(), stops.tolist()):
+        first = int(ordered[start])
+        data = np.frombuffer(os.pread(handle, (int(ordered[stop - 1]) - first + 1) * dtype.itemsize,
+                                      first * dtype.itemsize), dtype=dtype)
+        out[order[start:stop]] = data[ordered[start:stop] - first]
+    return out
+
+
+def _kept(values: np.ndarray, kind: Any = _Halves) -> Any:
+    """A new sorted run as it is kept: in memory while short, else split into halves (or on disk)."""
     if len(values) < SPLIT_ROWS:
         return values
-    run = _Halves(len(values))
+    run = kind(len(values))
     for start in range(0, len(values), MERGE_BLOCK):
         run.append(values[start:start + MERGE_BLOCK])
     run.file.flush()
@@ -411,18 +511,20 @@ def _kept(values: np.ndarray) -> Any:
 
 
 def _close(run: Any) -> None:
-    if isinstance(run, _Halves):
+    if isinstance(run, (_Halves, _OnDisk)):
         run.close()
 
 
 def _values(run: Any, start: int, stop: int) -> np.ndarray:
-    return run.values(start, stop) if isinstance(run, _Halves) else run[start:stop]
+    return run.values(start, stop) if isinstance(run, (_Halves, _OnDisk)) else run[start:stop]
 
 
 def _contains(run: Any, needles: np.ndarray) -> np.ndarray:
     """Which of the sorted ``needles`` are in the run."""
     import numpy as np
 
+    if isinstance(run, _OnDisk):
+        return run.contains(needles)
     if not isinstance(run, _Halves):
         # needles in sorted order: numpy's binary search narrows from the previous answer
         position = np.searchsorted(run, needles)
@@ -446,14 +548,14 @@ def _contains(run: Any, needles: np.ndarray) -> np.ndarray:
     return found
 
 
-def _merged(a: Any, b: Any) -> Any:
+def _merged(a: Any, b: Any, kind: Any = _Halves) -> Any:
     """The linear merge of two sorted runs, a block at a time (never both runs whole in 64 bits)."""
     import numpy as np
 
     total = len(a) + len(b)
     if total < SPLIT_ROWS:
         return _merge_sorted(_values(a, 0, len(a)), _values(b, 0, len(b)))
-    out = _Halves(total)
+    out = kind(total)
     i = j = 0
     while i < len(a) or j < len(b):
         x = _values(a, i, min(i + MERGE_BLOCK, len(a)))

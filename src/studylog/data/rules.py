@@ -27,6 +27,8 @@ repeated-row        warning     any row equal in every column to an earlier row
 
 from __future__ import annotations
 
+import threading
+import weakref
 from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -311,6 +313,20 @@ class UniqueRule(_Remembering):
                                      "row (first occurrences not counted); values must be unique")
 
 
+# the rows of the latest batch whose key repeats or is missing, from the key rule to the repeated-row
+# rule of the same plan (rules run in plan order, in one thread per check)
+_handed = threading.local()
+
+
+def _key_repeats(context: BatchContext) -> Any:
+    """The key rule's offending rows of this batch; None (every row looked up) if it has not run on it."""
+    last = getattr(_handed, "last", None)
+    if last is None or last[0]() is not context:
+        return None
+    _handed.last = None
+    return last[1]
+
+
 @dataclass(frozen=True)
 class KeyRule(_Remembering):
     columns: tuple[str, ...]  # the file columns holding the key
@@ -335,6 +351,7 @@ class KeyRule(_Remembering):
         keyed = ~absent
         repeat[keyed] = state.observe(hi[keyed], lo[keyed])
         offending = repeat | absent
+        _handed.last = (weakref.ref(context), offending)
         count = int(offending.sum())
         examples = context.examples(offending, list(self.columns)) if count else []
         return Tally(count, examples, other=int(absent.sum()))
@@ -355,14 +372,29 @@ class KeyRule(_Remembering):
 
 @dataclass(frozen=True)
 class RepeatedRowRule(_Remembering):
+    """Rows equal in every column to an earlier row.
+
+    ``keyed``: the plan's key rule runs before this one on each batch. A row equal to an earlier row has
+    the same key cells, so it either repeats an earlier row's key or has a key cell missing: only those
+    rows (``KeyRule`` hands them over) are looked up among the earlier batches' row digests, which then
+    wait in temporary files (``SeenDigests(on_disk=True)``) instead of memory. Rows of a batch are still
+    compared with each other, so the counts and examples are those of a lookup of every row.
+    """
+
     columns: tuple[str, ...]
     name: str = "repeated-row"
     severity: str = "warning"
     variable: str | None = None
+    keyed: bool = False
+
+    def new_state(self) -> Any:
+        from studylog.data.repeats import SeenDigests
+
+        return SeenDigests(on_disk=self.keyed)
 
     def evaluate(self, context: BatchContext, state: Any) -> Tally:
         hi, lo = context.row_digest()
-        repeat = state.observe(hi, lo)
+        repeat = state.observe(hi, lo, looked_up=_key_repeats(context) if self.keyed else None)
         count = int(repeat.sum())
         shown = list(context.plan.key_columns) or list(self.columns)
         return Tally(count, context.examples(repeat, shown) if count else [])
@@ -535,7 +567,7 @@ def plan(spec: TableSpec, columns: Sequence[str]) -> CheckPlan:
         key_columns = tuple(by_variable[k].column for k in spec.key)
         key_masked = any(by_variable[k].variable.masked for k in spec.key)
         rules.append(KeyRule(key_columns, tuple(spec.key)))
-    rules.append(RepeatedRowRule(tuple(columns)))
+    rules.append(RepeatedRowRule(tuple(columns), keyed=bool(key_columns)))
     cross, notes = cross_field_rules(spec, bindings)
     rules.extend(cross)
     findings.extend(notes)
