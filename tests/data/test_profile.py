@@ -174,7 +174,7 @@ def test_unknown_target_is_a_usage_error() -> None:
 
 
 def test_arrow_to_numpy_keeps_offsets_and_fills_nulls() -> None:
-    from studylog.data.univariate import to_numpy
+    from studylog.data.cells import to_numpy
 
     floats = pa.chunked_array([pa.array([1.5, None, 3.0]), pa.array([None, 5.0, 6.0, 7.0]).slice(1, 2)])
     assert to_numpy(floats, np.nan).tolist()[:1] == [1.5]

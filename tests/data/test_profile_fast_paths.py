@@ -9,7 +9,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from studylog.data import pairs, univariate
+from studylog.data import cells, pairs, univariate
 
 RNG_SEED = 20260302
 
@@ -97,8 +97,8 @@ def test_counting_decimals_builds_the_same_rank_base_as_sorting(values: np.ndarr
 def test_iso_dates_read_as_strptime_reads_them(texts: list[str | None]) -> None:
     strings = pa.chunked_array([pa.array(texts, pa.string())])
     expected = pc.cast(pc.strptime(strings, format="%Y-%m-%d", unit="s", error_is_null=True), pa.int64())
-    found = univariate.parse_dates(strings, None, "date")
-    assert np.array_equal(found, univariate.to_numpy(pc.cast(expected, pa.float64()), np.nan), equal_nan=True)
+    found = cells.parse_dates(strings, None, "date")
+    assert np.array_equal(found, cells.to_numpy(pc.cast(expected, pa.float64()), np.nan), equal_nan=True)
 
 
 @settings(max_examples=200, deadline=None)
@@ -108,9 +108,9 @@ def test_iso_dates_read_as_strptime_reads_them(texts: list[str | None]) -> None:
 def test_missing_found_on_the_levels_equals_missing_found_on_the_rows(values: list[str | None],
                                                                       codes: list[str]) -> None:
     strings = pa.chunked_array([pa.array(values, pa.string())])
-    plain = univariate.find_missing(strings, codes)
-    encoded = univariate.Encoded.of(strings)
-    found, level_codes, level_counts = univariate.find_missing_encoded(encoded, codes)
+    plain = cells.find_missing(strings, codes)
+    encoded = cells.Encoded.of(strings)
+    found, level_codes, level_counts = cells.find_missing_encoded(encoded, codes)
     assert np.array_equal(found.mask, plain.mask)
     assert (found.blank, found.codes) == (plain.blank, plain.codes)
     levels, counts, expected_codes = univariate.level_counts(strings, plain.mask)
@@ -122,7 +122,7 @@ def test_missing_found_on_the_levels_equals_missing_found_on_the_rows(values: li
 @pytest.mark.parametrize("text", ["", " ", "\t", "\u00a0", "\u3000", " 1", "1 "])
 def test_a_column_that_reads_as_numbers_has_no_blanks(text: str) -> None:
     # find_missing(blank_free=True) rests on Arrow refusing these as numbers
-    assert univariate.float_values(pa.chunked_array([pa.array(["1.5", text])])) is None
+    assert cells.float_values(pa.chunked_array([pa.array(["1.5", text])])) is None
 
 
 @settings(max_examples=100, deadline=None)
@@ -133,7 +133,7 @@ def test_to_numpy_fills_nulls_across_chunks_and_slices(values: list[int | None],
         chunked = pa.chunked_array([array.slice(0, cut), array.slice(cut)], kind)
         for arrow in (chunked, array.slice(min(skip, len(array)))):
             expected = [fill if v is None else v for v in arrow.to_pylist()]
-            found = univariate.to_numpy(arrow, fill)
+            found = cells.to_numpy(arrow, fill)
             assert found.flags.writeable and found.dtype == (bool if kind == pa.bool_() else found.dtype)
             assert np.array_equal(found, np.array(expected, dtype=found.dtype), equal_nan=kind == pa.float64())
 
@@ -181,12 +181,12 @@ def test_floats_worked_out_batch_by_batch_equal_the_columns_values(values: list[
         early.add(batches[at:at + 2])
     found = early.take(chunked, ["t", "n"])
     for name in ("t", "n"):
-        expected = univariate.float_values(chunked.column(name))
+        expected = cells.float_values(chunked.column(name))
         if expected is None:
             assert found[name] is None
         else:
-            assert np.array_equal(found[name], univariate.to_numpy(expected, np.nan), equal_nan=True)
-            assert found[name].tobytes() == univariate.to_numpy(expected, np.nan).tobytes()
+            assert np.array_equal(found[name], cells.to_numpy(expected, np.nan), equal_nan=True)
+            assert found[name].tobytes() == cells.to_numpy(expected, np.nan).tobytes()
 
 
 def test_floats_given_up_with_the_whole_read_are_not_used() -> None:
@@ -211,5 +211,5 @@ def test_floats_worked_out_batch_by_batch_grow_past_the_expected_rows() -> None:
     for at in range(0, len(batches), 3):
         early.add(batches[at:at + 3])
     chunked = pa.Table.from_batches(batches)
-    expected = univariate.to_numpy(univariate.float_values(chunked.column("x")), np.nan)
+    expected = cells.to_numpy(cells.float_values(chunked.column("x")), np.nan)
     assert early.take(chunked, ["x"])["x"].tobytes() == expected.tobytes()

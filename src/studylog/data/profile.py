@@ -20,7 +20,7 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from studylog.data import pairs, significance, suggest, univariate
+from studylog.data import cells, pairs, significance, suggest, univariate
 from studylog.data.spec import LEVEL_TYPES, NUMERIC_TYPES, VariableSpec
 from studylog.errors import UsageError
 
@@ -61,7 +61,7 @@ def _ordinal_rank(levels: Sequence[str], spec: VariableSpec) -> np.ndarray:
 
 
 class EarlyFloats:
-    """Each column's texts as float64 values with NaN for nulls (``univariate.float_values``, then
+    """Each column's texts as float64 values with NaN for nulls (``cells.float_values``, then
     ``to_numpy``), worked out a batch at a time while the file is still being read, on the core the
     single-threaded parse leaves idle. A column is no longer tried from its first batch that does
     not read as numbers. Casting is per value, so the batches' values joined are exactly the
@@ -101,7 +101,7 @@ class EarlyFloats:
             # as to_numpy: NaN where null
             if floats.null_count:
                 floats = pc.fill_null(floats, np.nan)
-            np.concatenate([univariate._values(chunk, np.float64) for chunk in floats.chunks],
+            np.concatenate([cells.chunk_values(chunk, np.float64) for chunk in floats.chunks],
                            out=values[start:end])
         self._rows = end
         self._lengths.extend(batch.num_rows for batch in batches)
@@ -150,17 +150,17 @@ def _profile_column(name: str, strings: pa.ChunkedArray, spec: VariableSpec,
     # blanks and missing codes found once per distinct level, or not looked for in a column that
     # reads as numbers throughout
     if kind in LEVEL_TYPES or kind == "boolean":
-        encoded = univariate.Encoded.of(strings)
-        missing, level_codes, level_counts = univariate.find_missing_encoded(encoded, declared + extra)
+        encoded = cells.Encoded.of(strings)
+        missing, level_codes, level_counts = cells.find_missing_encoded(encoded, declared + extra)
     else:
         if kind in NUMERIC_TYPES and known_floats is not _UNKNOWN:
             floats = known_floats
         elif kind in NUMERIC_TYPES:
-            floats = univariate.float_values(strings)
-        elif kind in ("date", "datetime") and univariate.date_format(spec, kind) == "%Y-%m-%d":
-            dates = univariate.iso_dates(strings)
+            floats = cells.float_values(strings)
+        elif kind in ("date", "datetime") and cells.date_format(spec, kind) == "%Y-%m-%d":
+            dates = cells.iso_dates(strings)
         blank_free = floats is not None or dates is not None
-        missing = univariate.find_missing(strings, declared + extra, blank_free=blank_free)
+        missing = cells.find_missing(strings, declared + extra, blank_free=blank_free)
     rows = len(strings)
     codes = [dict(c, declared=c["code"] in declared) for c in missing.codes]
     entry: dict[str, Any] = {
@@ -171,7 +171,7 @@ def _profile_column(name: str, strings: pa.ChunkedArray, spec: VariableSpec,
     column = _Column(name, spec, entry)
     masked = spec.masked
     if kind in NUMERIC_TYPES:
-        values, invalid = univariate.parse_numbers(strings, missing.mask, floats)
+        values, invalid = cells.parse_numbers(strings, missing.mask, floats)
         if kind == "integer":
             fractional = np.isfinite(values) & (values != np.floor(values))
             invalid |= fractional
@@ -182,19 +182,19 @@ def _profile_column(name: str, strings: pa.ChunkedArray, spec: VariableSpec,
         counts = column.base.group_counts
         entry.update(univariate.numeric_summary(column.base.sorted_values, kind == "integer", counts[counts > 0]))
         entry["invalid"] = int(np.count_nonzero(invalid))
-        entry["invalid_examples"] = univariate.invalid_examples(strings, invalid, masked)
+        entry["invalid_examples"] = cells.invalid_examples(strings, invalid, masked)
         entry["impossible"] = _impossible(column.base.sorted_values, spec)
         if masked:
             for key in ("min", "max"):
                 entry[key] = None
     elif kind in ("date", "datetime"):
-        seconds = univariate.parse_dates(strings, spec, kind, dates,
-                                         iso_tried=univariate.date_format(spec, kind) == "%Y-%m-%d")
+        seconds = cells.parse_dates(strings, spec, kind, dates,
+                                         iso_tried=cells.date_format(spec, kind) == "%Y-%m-%d")
         seconds[missing.mask] = np.nan
         invalid = ~missing.mask & np.isnan(seconds)
         entry.update(univariate.date_summary(np.sort(seconds[~np.isnan(seconds)]), kind))
         entry["invalid"] = int(np.count_nonzero(invalid))
-        entry["invalid_examples"] = univariate.invalid_examples(strings, invalid, masked)
+        entry["invalid_examples"] = cells.invalid_examples(strings, invalid, masked)
     elif encoded is not None and level_codes is not None and level_counts is not None:
         levels, counts = univariate.level_counts_encoded(encoded, level_counts)
         entry.update(univariate.level_summary(levels, counts, masked, kind))
@@ -230,7 +230,7 @@ def _as_levels(column: _Column, strings: pa.ChunkedArray) -> pairs.LevelColumn:
     if column.levels is not None:
         return column.levels
     missing = np.asarray(
-        univariate.find_missing(strings, [c["code"] for c in column.entry["missing_codes"]]).mask
+        cells.find_missing(strings, [c["code"] for c in column.entry["missing_codes"]]).mask
     )
     levels, _counts, codes = univariate.level_counts(strings, missing)
     return pairs.LevelColumn(column.name, codes, len(levels), extra={"levels": levels})
