@@ -182,6 +182,10 @@ def test_digests_written_to_a_temporary_file_during_the_pass_equal_those_kept_in
     assert isinstance(spilled, digests.SpilledRecords) and spilled.rows == kept.rows == 50
     assert np.array_equal(spilled.digests, kept.digests)
     assert spilled.to_chunks() == kept.to_chunks()
+    # the key texts of full chunks wait in a temporary file as well
+    assert isinstance(spilled.key_texts, digests.TextChunks) and len(spilled.key_texts) == 8
+    shown = np.array([0, 8, 27, 49])
+    assert spilled.key_text(shown) == kept.key_text(shown) == Records.from_chunks(kept.to_chunks()).key_text(shown)
     # (site, member) is unique in the seeded drop: compared with itself, every record is unchanged
     result = compare_records(Records.from_chunks(spilled.to_chunks()), spilled)
     assert result.unchanged == 50 and result.new == result.vanished == result.changed == 0

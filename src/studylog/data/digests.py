@@ -46,7 +46,7 @@ from __future__ import annotations
 
 import json
 from dataclasses import dataclass, field
-from collections.abc import Callable, Iterable, Iterator
+from collections.abc import Callable, Iterable, Iterator, Sequence
 from typing import TYPE_CHECKING, Any
 
 if TYPE_CHECKING:
@@ -128,7 +128,7 @@ class Records:
     columns: list[str]
     digests: np.ndarray
     # compressed key texts per chunk (Arrow IPC, zstd), aligned with CHUNK_ROWS chunks
-    key_texts: list[bytes] = field(default_factory=list)
+    key_texts: Sequence[bytes] = field(default_factory=list)
     # (n, len(columns)) uint16 per-cell digests, or None when the drop was too large to keep them
     cells: np.ndarray | None = None
 
@@ -240,7 +240,7 @@ class SpilledRecords(Records):
     """
 
     def __init__(self, key: list[str], columns: list[str], spill: Any, rows: int,
-                 key_texts: list[bytes], cells: np.ndarray | None, tail: np.ndarray) -> None:
+                 key_texts: Sequence[bytes], cells: np.ndarray | None, tail: np.ndarray) -> None:
         self.key, self.columns, self.key_texts, self.cells = key, columns, key_texts, cells
         self._spill = spill
         self._rows = rows
@@ -277,6 +277,36 @@ class SpilledRecords(Records):
             low, high = max(start, first), min(stop, first + lanes.shape[1])
             out[low - start:high - start] = lanes[:, low - first:high - first].T
         return out
+
+
+class TextChunks(Sequence[bytes]):
+    """Encoded key-text chunks (``_encode_texts``) in a temporary file, read back one at a time."""
+
+    def __init__(self, chunks: Iterable[bytes] = ()) -> None:
+        import tempfile
+
+        self.file = tempfile.TemporaryFile(prefix="studylog-keys-")  # noqa: SIM115 - kept open
+        self.places: list[tuple[int, int]] = []
+        self.end = 0
+        for chunk in chunks:
+            self.append(chunk)
+
+    def append(self, chunk: bytes) -> None:
+        self.file.seek(self.end)
+        self.file.write(chunk)
+        self.places.append((self.end, len(chunk)))
+        self.end += len(chunk)
+
+    def __len__(self) -> int:
+        return len(self.places)
+
+    def __getitem__(self, index: Any) -> Any:
+        if isinstance(index, slice):
+            return [self[i] for i in range(*index.indices(len(self)))]
+        start, size = self.places[index]
+        self.file.flush()
+        self.file.seek(start)
+        return self.file.read(size)
 
 
 def _lane_bytes(digests: np.ndarray) -> bytes:
@@ -345,7 +375,7 @@ class RecordDigester:
         self.spill_limit = 0
         self.texts: list[pa.Array] = []
         self.pending_texts = 0
-        self.key_texts: list[bytes] = []
+        self.key_texts: list[bytes] | TextChunks = []
         self.rows = 0
 
     def update(self, batch: pa.RecordBatch,
@@ -430,6 +460,9 @@ class RecordDigester:
         self.pending_texts += len(texts)
         while self.pending_texts >= CHUNK_ROWS:
             joined = pa.concat_arrays([t.cast(pa.large_string()) for t in self.texts])
+            if not isinstance(self.key_texts, TextChunks):
+                # a drop of more than one chunk: its key texts wait in a temporary file too
+                self.key_texts = TextChunks(self.key_texts)
             self.key_texts.append(_encode_texts(joined.slice(0, CHUNK_ROWS)))
             # a copy of the rest, so that the chunk's texts are let go
             rest = pa.concat_arrays([joined.slice(CHUNK_ROWS)])
