@@ -18,6 +18,7 @@ Definitions (DESIGN.md, "Statistical definitions"):
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass, field
@@ -59,8 +60,9 @@ class RankBase:
     def finish(self) -> RankBase:
         self.centre = float(self.sorted_values.mean()) if self.sorted_values.size else 0.0
         self.centred -= self.centre
-        self.centred[~self.valid] = 0.0
-        self.missing_rows = np.flatnonzero(~self.valid)
+        invalid = ~self.valid
+        self.centred[invalid] = 0.0
+        self.missing_rows = np.flatnonzero(invalid)
         self.total = float(self.centred.sum())
         self.total_squares = _dot(self.centred, self.centred)
         return self
@@ -74,8 +76,7 @@ class RankBase:
         if not reuse:
             values = values.copy()
         valid = ~np.isnan(values)
-        rows = np.flatnonzero(valid)
-        present = values[rows]
+        present = values[valid]
         if integer and present.size and present.max() - present.min() < INTEGER_COUNTING_SPAN:
             low = present.min()
             offsets = (present - low).astype(np.int64)
@@ -83,13 +84,14 @@ class RankBase:
             seen = np.flatnonzero(counts)
             sorted_values = np.repeat(low + seen.astype(np.float64), counts[seen])
             group_row = np.zeros(values.size, dtype=np.intp)
-            group_row[rows] = offsets
+            group_row[valid] = offsets  # by the mask: twice as fast as by the rows' numbers
             return cls(valid, sorted_values, group_row, int(counts.size), counts, centred=values).finish()
         scale = None if integer else _decimal_scale(present)
         if scale is not None:
-            counted = _counted_decimals(cls, values, valid, rows, present, scale)
+            counted = _counted_decimals(cls, values, valid, present, scale)
             if counted is not None:
                 return counted
+        rows = np.flatnonzero(valid)
         order = np.argsort(present)  # tie order is irrelevant: ties share a group
         sorted_values = present[order]
         starts = np.empty(sorted_values.size, dtype=bool)
@@ -152,8 +154,8 @@ def _decimal_scale(present: np.ndarray) -> float | None:
     return None
 
 
-def _counted_decimals(cls: type[RankBase], values: np.ndarray, valid: np.ndarray, rows: np.ndarray,
-                      present: np.ndarray, scale: float) -> RankBase | None:
+def _counted_decimals(cls: type[RankBase], values: np.ndarray, valid: np.ndarray, present: np.ndarray,
+                      scale: float) -> RankBase | None:
     """The same RankBase as sorting gives, by counting: every value is k / scale for a whole k, the
     ks span few values, and k / scale gives back each value exactly; None when that does not hold
     (or a value is -0, which counting would turn into 0)."""
@@ -174,7 +176,7 @@ def _counted_decimals(cls: type[RankBase], values: np.ndarray, valid: np.ndarray
     dense -= 1
     sorted_values = np.repeat((low + np.flatnonzero(seen).astype(np.float64)) / scale, counts)
     group_row = np.zeros(values.size, dtype=np.intp)
-    group_row[rows] = dense[offsets]
+    group_row[valid] = dense[offsets]
     return cls(valid, sorted_values, group_row, int(counts.size), counts, centred=values).finish()
 
 
@@ -360,6 +362,11 @@ class LevelColumn:
     ordinal_rank: np.ndarray | None = None  # position of each level in the variable's order
     extra: dict[str, Any] = field(default_factory=dict)
 
+    @functools.cached_property
+    def present(self) -> np.ndarray:
+        """Where a level is given (the mask of codes >= 0; made once, read by every measure)."""
+        return self.codes >= 0
+
 
 def associations(columns: Sequence[LevelColumn],
                  mapper: Callable[..., Iterable[Any]] = map) -> list[dict[str, Any]]:
@@ -406,7 +413,7 @@ def group_comparisons(by: LevelColumn, numeric: Sequence[NumericColumn],
     ``mapper`` (e.g. a thread pool's map) computes the variables' tests."""
 
     def compare(column: NumericColumn) -> dict[str, Any]:
-        rows = np.flatnonzero(column.base.valid & (by.codes >= 0))
+        rows = np.flatnonzero(column.base.valid & by.present)
         entry: dict[str, Any] = {"variable": column.name, "n": int(rows.size), "anova": None,
                                  "kruskal_wallis": None}
         if rows.size >= 3:

@@ -275,7 +275,7 @@ def _leakage_measure(column: _Column, target: _Column, target_levels: pairs.Leve
     if column is target or column.spec.role in ("identifier", "excluded", "target") or target_levels is None:
         return None, None
     if column.base is not None:
-        rows = column.base.valid & (target_levels.codes >= 0)
+        rows = column.base.valid & target_levels.present
         if np.count_nonzero(rows) >= pairs.MIN_PAIR_CASES:
             groups, k, sizes = pairs.compact_groups_counted(target_levels.codes[rows], target_levels.levels)
             result = significance.anova(groups, column.base.centred[rows], k, sizes)
