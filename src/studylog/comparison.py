@@ -167,7 +167,7 @@ class Tracker:
         if drop is not None:
             if later is not None:
                 # one chunk at a time: written, then let go (a drop's digests are never all in memory)
-                for kind, seq, data in later.iter_chunks():
+                for kind, seq, data in later.iter_chunks(views=True):
                     chunk = DigestChunk(drop_id=drop.id, seq=seq, kind=kind, data=data)
                     session.add(chunk)
                     session.flush()

@@ -160,8 +160,12 @@ class Records:
         """(kind, seq, data) rows for the store's ``digest_chunks``."""
         return list(self.iter_chunks())
 
-    def iter_chunks(self) -> Iterator[tuple[str, int, bytes]]:
-        """``to_chunks`` one chunk at a time, so that a caller can store each before the next is made."""
+    def iter_chunks(self, *, views: bool = False) -> Iterator[tuple[str, int, Any]]:
+        """``to_chunks`` one chunk at a time, so that a caller can store each before the next is made.
+
+        ``views``: the per-cell digests as byte views of the array that holds them instead of copies
+        (the database copies them as it writes them; a drop's cell digests are 2 bytes a cell).
+        """
         import numpy as np
 
         meta = {"format": FORMAT, "key": self.key, "columns": self.columns, "rows": self.rows,
@@ -175,7 +179,9 @@ class Records:
             if number < len(self.key_texts):
                 yield ("keys", 3 * number + 2, self.key_texts[number])
             if self.cells is not None:
-                yield ("columns", 3 * number + 3, np.ascontiguousarray(self.cells[start:stop], dtype="<u2").tobytes())
+                cells = np.ascontiguousarray(self.cells[start:stop], dtype="<u2")
+                yield ("columns", 3 * number + 3, memoryview(cells).cast("B") if views else cells.tobytes())
+                del cells
 
     def records_bytes(self, number: int) -> bytes:
         """The stored ``records`` chunk ``number``: lane-major, the chunk's key lanes, then its row lanes
