@@ -426,12 +426,14 @@ class RecordDigester:
             self.block[2, here] = row_hi[rows]
             self.block[3, here] = row_lo[rows]
             if self.cell_block is not None:
+                # the top 16 bits of each cell's first lane, a column at a time into contiguous rows, then
+                # one transposing copy (writing each column straight into the row-major block is slower)
+                tops = np.zeros((len(self.columns), take), dtype=np.uint16)
                 for i, name in enumerate(self.columns):
                     if name in names:
-                        np.right_shift(lanes(name)[0][rows], np.uint64(48), out=self.cell_block[here, i],
-                                       casting="unsafe")
-                    else:
-                        self.cell_block[here, i] = 0
+                        np.right_shift(lanes(name)[0][rows], np.uint64(48), out=tops[i], casting="unsafe")
+                self.cell_block[here] = tops.T
+                del tops
             self.filled += take
             done += take
             if self.filled == CHUNK_ROWS:
