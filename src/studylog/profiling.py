@@ -193,7 +193,7 @@ def _split(told: list[Any]) -> list[Any]:
 
 def _blocks(path: Path) -> float:
     """How many blocks the whole-file read parses (the batches ``read_table`` tells of)."""
-    from studylog.data.read import WHOLE_BLOCK
+    from studylog.data.read_whole import WHOLE_BLOCK
 
     try:
         return path.stat().st_size / WHOLE_BLOCK

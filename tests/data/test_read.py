@@ -11,7 +11,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from studylog.data import read
+from studylog.data import read, read_whole
 from studylog.data.read import file_facts, open_source, read_table
 from studylog.errors import InputFileError, StudylogError, UsageError
 
@@ -325,12 +325,12 @@ def _streamed(path: Path) -> pa.Table:
 )
 def test_whole_file_read_equals_the_streamed_batches(tmp_path: Path, data: bytes) -> None:
     path = write(tmp_path, "x.csv", data)
-    assert read._csv_whole(open_source(path)) is not None
+    assert read_whole.csv_whole(open_source(path)) is not None
     assert read_table(path).equals(_streamed(path))
 
 
 def test_whole_file_read_of_many_blocks_keeps_row_order(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
-    monkeypatch.setattr(read, "WHOLE_BLOCK", 1 << 10)
+    monkeypatch.setattr(read_whole, "WHOLE_BLOCK", 1 << 10)
     rows = "".join(f"{i},v{i % 7}\n" for i in range(5000))
     path = write(tmp_path, "x.csv", ("n,v\n" + rows).encode())
     table = read_table(path)
@@ -341,7 +341,7 @@ def test_whole_file_read_of_many_blocks_keeps_row_order(tmp_path: Path, monkeypa
 
 def test_a_watched_whole_file_read_tells_each_chunk_of_data_rows(tmp_path: Path,
                                                                   monkeypatch: pytest.MonkeyPatch) -> None:
-    monkeypatch.setattr(read, "WHOLE_BLOCK", 1 << 10)
+    monkeypatch.setattr(read_whole, "WHOLE_BLOCK", 1 << 10)
     rows = "".join(f"{i},v{i % 7}\n" for i in range(5000))
     path = write(tmp_path, "x.csv", ("n,v\n" + rows).encode())
     told: list[pa.RecordBatch | None] = []
@@ -390,13 +390,13 @@ def test_whole_file_read_with_progress_reaches_the_file_size(tmp_path: Path) -> 
 @pytest.mark.parametrize("data", [b'a,"b"\n1,2\n', b'a,b\n"1",\x00\n' + b"x" * (3 << 20) + b'\x00"\n', b""])
 def test_the_scan_finds_what_the_watched_file_finds(tmp_path: Path, data: bytes,
                                                     monkeypatch: pytest.MonkeyPatch) -> None:
-    monkeypatch.setattr(read, "SCAN_BLOCK", 1 << 20)
+    monkeypatch.setattr(read_whole, "SCAN_BLOCK", 1 << 20)
     path = write(tmp_path, "x.csv", data)
-    watched = read._WatchedFile(path, len(data), None, watch_nul=True)
+    watched = read.WatchedFile(path, len(data), None, watch_nul=True)
     with watched:
         while watched.read(1 << 16):
             pass
-    assert read._scan_bytes(path, watch_nul=True) == (watched.nul_at, watched.quotes, True)
+    assert read_whole.scan_bytes(path, watch_nul=True) == (watched.nul_at, watched.quotes, True)
 
 
 @pytest.mark.parametrize(
@@ -411,9 +411,9 @@ def test_the_scan_finds_what_the_watched_file_finds(tmp_path: Path, data: bytes,
 )
 def test_the_scan_validates_utf8_as_the_parser_does(tmp_path: Path, data: bytes, valid: bool,
                                                    monkeypatch: pytest.MonkeyPatch) -> None:
-    monkeypatch.setattr(read, "SCAN_BLOCK", 4)
+    monkeypatch.setattr(read_whole, "SCAN_BLOCK", 4)
     path = write(tmp_path, "x.csv", data)
-    assert read._scan_bytes(path, watch_nul=True, check_utf8=True)[2] is valid
+    assert read_whole.scan_bytes(path, watch_nul=True, check_utf8=True)[2] is valid
     if not valid:
         with pytest.raises(InputFileError) as caught:
             read_table(path)

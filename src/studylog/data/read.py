@@ -12,7 +12,8 @@ file and, where it can be found, the line (the physical line of the file; for Ex
 
 Formats: ``.csv``/``.txt`` (delimiter detected among comma, semicolon, tab and pipe), ``.tsv``/``.tab``,
 ``.parquet``/``.pq``, ``.xlsx``/``.xlsm`` (first sheet or ``sheet=``). The data layer never prints; a
-caller that wants a progress bar passes ``progress(bytes_done, bytes_total)``.
+caller that wants a progress bar passes ``progress(bytes_done, bytes_total)``. ``read_table`` reads a
+whole CSV at once where it can (:mod:`studylog.data.read_whole`), else through these readers.
 """
 
 from __future__ import annotations
@@ -46,9 +47,6 @@ FIRST_BLOCK = 1 << 20
 LARGEST_BLOCK = 1 << 30
 CHUNK = 1 << 20
 QUOTE = ord('"')
-SCAN_BLOCK = 1 << 23
-# Blocks of the whole-file read: the parser's memory stays small beside the table.
-WHOLE_BLOCK = 1 << 20
 
 # Magic numbers of files that are often given a .csv name by mistake.
 _SIGNATURES = (
@@ -97,10 +95,10 @@ class Source:
 
 
 def _whole(source: Source) -> pa.Table:
-    import pyarrow as pa
+    from studylog.data.read_whole import csv_whole
 
     if source.format in ("csv", "tsv"):
-        table = _csv_whole(source)
+        table = csv_whole(source)
         if table is not None:
             return table.slice(1).rename_columns(source.columns)
     return _streamed_whole(source)
@@ -182,8 +180,10 @@ def read_table(
     what it was told stands for nothing)."""
     file = Path(path)
     if progress is None and file.suffix.lower() in CSV_EXTENSIONS:
+        from studylog.data.read_whole import csv_whole
+
         source = _open(file, encoding, sheet, batch_rows, progress, probe=False)
-        table = _csv_whole(source, watch)
+        table = csv_whole(source, watch)
         if table is None and watch is not None:
             watch(None)
         if table is not None:
@@ -266,7 +266,7 @@ def _first_undecodable(path: Path, encoding: str) -> tuple[int, str] | None:
 # ------------------------------------------------------------------------------------------------- CSV
 
 
-class _WatchedFile:
+class WatchedFile:
     """The raw file as pyarrow reads it, watched on the way: progress, NUL bytes, and quote parity."""
 
     def __init__(self, path: Path, size: int, progress: Progress | None, watch_nul: bool) -> None:
@@ -311,7 +311,7 @@ class _WatchedFile:
         self._handle.close()
         self.closed = True
 
-    def __enter__(self) -> _WatchedFile:
+    def __enter__(self) -> WatchedFile:
         return self
 
     def __exit__(self, *exc: object) -> None:
@@ -395,7 +395,7 @@ def _open_csv(
     return source
 
 
-def _csv_options(source: Source, width: int, block: int, threads: bool, check_utf8: bool = True) -> dict[str, Any]:
+def csv_options(source: Source, width: int, block: int, threads: bool, check_utf8: bool = True) -> dict[str, Any]:
     import pyarrow as pa
     import pyarrow.csv as pacsv
 
@@ -422,108 +422,10 @@ def _csv_options(source: Source, width: int, block: int, threads: bool, check_ut
     return {"read_options": read_options, "parse_options": parse_options, "convert_options": convert_options}
 
 
-def _csv_reader(source: Source, width: int, block: int, handle: _WatchedFile) -> Any:
+def _csv_reader(source: Source, width: int, block: int, handle: WatchedFile) -> Any:
     import pyarrow.csv as pacsv
 
-    return pacsv.open_csv(handle, **_csv_options(source, width, block, threads=False))
-
-
-def _csv_whole(source: Source, watch: Watch | None = None) -> pa.Table | None:
-    """The whole CSV in one read, header row first, or None when the read meets anything unusual.
-
-    A caller that needs every row at once (profile, draft) holds the whole table anyway, so the
-    parser's blocks are kept as they come instead of being joined into batches. Any error, a NUL byte
-    or an odd number of quotes sends the caller back to the streaming reader, which reads the file
-    again and reports exactly what a check would (with the line).
-
-    Without a progress callback pyarrow reads the file itself, outside Python, while another thread
-    looks for NUL bytes and counts quotes: the read then never waits for Python's lock, and other
-    threads of the caller work meanwhile. One parsing thread: a multithreaded parse of a file on two
-    cores saved little time for half as much CPU again, which the caller's other threads lacked.
-    ``watch``: see ``read_table`` (the caller is told of a read given up).
-    """
-    import pyarrow as pa
-
-    width = len(source.columns)
-    watch_nul = not source.encoding.startswith(("utf-16", "utf-32"))
-    if source.progress is not None:
-        handle = _WatchedFile(source.path, source.size, source.progress, watch_nul=watch_nul)
-        with handle:
-            table = _read_whole(handle, _csv_options(source, width, WHOLE_BLOCK, threads=False))
-        nul_at, quotes, valid = handle.nul_at, handle.quotes, True
-    else:
-        from concurrent.futures import ThreadPoolExecutor
-
-        # UTF-8 text is validated by the scan (on another core) instead of cell by cell by the parser,
-        # a fifth of its time; any invalid byte sends the file to the streaming reader
-        utf8 = source.encoding == "utf-8"
-        options = _csv_options(source, width, WHOLE_BLOCK, threads=False, check_utf8=not utf8)
-        with ThreadPoolExecutor(max_workers=1, thread_name_prefix="studylog-scan") as pool:
-            scanned = pool.submit(_scan_bytes, source.path, watch_nul, utf8)
-            try:
-                with pa.OSFile(str(source.path)) as native:
-                    table = _read_whole(native, options, watch)
-            except OSError:
-                table = None
-            try:
-                nul_at, quotes, valid = scanned.result()
-            except OSError:
-                return None
-    if table is None or nul_at is not None or quotes % 2 or not valid or table.num_columns != width:
-        return None
-    return table
-
-
-def _read_whole(handle: Any, options: dict[str, Any], watch: Watch | None = None) -> pa.Table | None:
-    import pyarrow as pa
-    import pyarrow.csv as pacsv
-
-    try:
-        if watch is None:
-            return pacsv.read_csv(handle, **options)
-        # the same parse a batch at a time (as fast), so that the watcher can work on each batch
-        # while the next is parsed
-        reader = pacsv.open_csv(handle, **options)
-        batches = []
-        for batch in reader:
-            watch(batch.slice(1) if not batches else batch)  # the header row is no data
-            batches.append(batch)
-        return pa.Table.from_batches(batches, schema=reader.schema)
-    except StudylogError:
-        raise
-    except (pa.ArrowException, UnicodeError, OSError, ValueError, LookupError):
-        return None
-
-
-def _scan_bytes(path: Path, watch_nul: bool, check_utf8: bool = False) -> tuple[int | None, int, bool]:
-    """The offset of the first NUL byte (None without one, or when not watched) and the number of
-    quote characters, as ``_WatchedFile`` finds them, and whether the bytes are valid UTF-8 (True
-    when not checked). A file is valid UTF-8 exactly when each of its cells is: the cells are cut
-    at ASCII bytes, which no multi-byte character holds."""
-    import numpy as np
-
-    done = quotes = 0
-    nul_at: int | None = None
-    decoder = codecs.getincrementaldecoder("utf-8")()
-    pending = False  # the decoder holds the start of a character cut by the end of a block
-    valid = True
-    with open(path, "rb", buffering=0) as handle:
-        while chunk := handle.read(SCAN_BLOCK):
-            if watch_nul and nul_at is None:
-                found = chunk.find(b"\x00")
-                if found >= 0:
-                    nul_at = done + found
-            quotes += int(np.count_nonzero(np.frombuffer(chunk, dtype=np.uint8) == QUOTE))
-            if check_utf8 and valid and (pending or not chunk.isascii()):
-                try:
-                    decoder.decode(chunk)
-                except UnicodeDecodeError:
-                    valid = False
-                pending = bool(decoder.getstate()[0])
-            done += len(chunk)
-    if check_utf8 and valid and pending:
-        valid = False  # the file ends inside a character
-    return nul_at, quotes, valid
+    return pacsv.open_csv(handle, **csv_options(source, width, block, threads=False))
 
 
 def _probe_csv(source: Source, width: int) -> tuple[list[Any], bool]:
@@ -550,7 +452,7 @@ def _csv_raw_batches(source: Source, width: int) -> Iterator[pa.RecordBatch]:
     block = FIRST_BLOCK
     skip = 0  # rows already handed out before a retry with a larger block
     while True:
-        handle = _WatchedFile(
+        handle = WatchedFile(
             source.path, source.size, source.progress, watch_nul=not source.encoding.startswith(("utf-16", "utf-32"))
         )
         with handle:
@@ -586,7 +488,7 @@ def _csv_raw_batches(source: Source, width: int) -> Iterator[pa.RecordBatch]:
                 raise _translate_csv_error(source, str(exc)) from None
 
 
-def _raise_nul(source: Source, handle: _WatchedFile) -> None:
+def _raise_nul(source: Source, handle: WatchedFile) -> None:
     if handle.nul_at is not None:
         raise InputFileError(
             str(source.path), "holds a NUL byte: a binary file, or text in another encoding (try --encoding)",
