@@ -10,7 +10,7 @@ and reports wall time and peak resident memory (max RSS of the child, from ``get
 their ratios. Goals: time ratio <= 3; peak memory no more than one copy of the data beyond the Arrow
 table.
 
-    python benchmarks/profile.py [--rows N] [--keep FILE] [--repeat K]
+    python benchmarks/profile.py [--rows N] [--keep FILE] [--repeat K]   (medians of K runs each)
 """
 
 from __future__ import annotations
@@ -18,6 +18,7 @@ from __future__ import annotations
 import argparse
 import os
 import resource
+import statistics
 import subprocess
 import sys
 import tempfile
@@ -108,7 +109,8 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.add_argument("--rows", type=int, default=1_000_000)
     parser.add_argument("--keep", type=Path, help="Write the CSV here and keep it (reused if it exists).")
-    parser.add_argument("--repeat", type=int, default=1, help="Runs of each command; the best is kept.")
+    parser.add_argument("--repeat", type=int, default=1,
+                        help="Runs of each command, taken in turns; the medians are reported.")
     args = parser.parse_args()
     folder = Path(tempfile.mkdtemp(prefix="studylog-bench-"))
     path = args.keep or folder / "members.csv"
@@ -120,10 +122,14 @@ def main() -> None:
     studylog = [sys.executable, "-m", "studylog", "profile", str(path), "--target", "churned", "--json"]
     env_store = folder / "no-study" / "studylog.db"
     os.environ["STUDYLOG_STORE"] = str(env_store)  # profiling needs no study; make sure none is found
-    results = {}
-    for label, command in (("pyarrow.csv.read_csv", baseline), ("studylog profile", studylog)):
-        runs = [measure(command) for _ in range(args.repeat)]
-        results[label] = tuple(min(r[k] for r in runs) for k in range(3))
+    commands = {"pyarrow.csv.read_csv": baseline, "studylog profile": studylog}
+    runs: dict[str, list[tuple[float, int, float]]] = {label: [] for label in commands}
+    # in turns, so that a neighbour's load falls on both alike
+    for _ in range(args.repeat):
+        for label, command in commands.items():
+            runs[label].append(measure(command))
+    results = {label: tuple(statistics.median(r[k] for r in taken) for k in range(3))
+               for label, taken in runs.items()}
     base_time, base_rss, base_cpu = results["pyarrow.csv.read_csv"]
     for label, (seconds, rss, cpu) in results.items():
         print(f"{label:22s} wall {seconds:7.2f} s  cpu {cpu:7.2f} s  peak RSS {rss / 2**20:7.0f} MiB")
