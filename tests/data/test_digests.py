@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+import pytest
 import pyarrow as pa
 from hypothesis import given, settings
 from hypothesis import strategies as st
@@ -190,3 +191,25 @@ def test_digests_written_to_a_temporary_file_during_the_pass_equal_those_kept_in
     result = compare_records(Records.from_chunks(spilled.to_chunks()), spilled)
     assert result.unchanged == 50 and result.new == result.vanished == result.changed == 0
     assert result.repeated_later == 0
+
+
+@settings(max_examples=30, deadline=None)
+@given(st.lists(st.integers(0, 30), max_size=60), st.lists(st.integers(0, 30), max_size=60),
+       st.sets(st.integers(0, 30), max_size=10), st.integers(1, 8))
+def test_comparison_a_chunk_at_a_time_equals_the_comparison_at_once(
+        before: list[int], after: list[int], touched: set[int], chunk: int) -> None:
+    # repeated and empty keys included; the later keys are looked up and compared chunk by chunk
+    def table(keys: list[int], bump: set[int]) -> pa.Table:
+        return pa.table({"id": ["" if k == 0 else str(k) for k in keys],
+                         "v": [str(k + (1000 if k in bump else 0)) for k in keys]})
+
+    earlier, later = records(table(before, set()), ["id"], 3), records(table(after, touched), ["id"], 5)
+    whole = compare_records(earlier, later)
+    with pytest.MonkeyPatch.context() as patch:
+        patch.setattr(digests, "CHUNK_ROWS", chunk)
+        pieces = compare_records(earlier, later)
+    for name in ("new", "vanished", "changed", "unchanged", "repeated_earlier", "repeated_later",
+                 "no_key_later", "changed_columns"):
+        assert getattr(pieces, name) == getattr(whole, name), name
+    for name in ("new_rows", "vanished_rows", "changed_rows", "changed_pairs"):
+        assert np.array_equal(getattr(pieces, name), getattr(whole, name)), name
