@@ -23,6 +23,8 @@ INFERENCE_ROWS = 100_000
 SAMPLE_STRETCHES = 20
 # the share of a file's columns that must be variables of the study's only table to use it unasked
 MATCH_SHARE = 0.5
+# the batches of a whole-file read whose numbers are worked out together while the file is read
+EARLY_BATCHES = 4
 
 
 @dataclass
@@ -155,8 +157,9 @@ def profile_file(
         # then the numeric reading of each batch read, on the core the parse leaves idle
         early = profile.EarlyFloats(_blocks(path))
         while True:
+            # a few batches at a time (the fewer the calls, the less time in Python), and all there are
             come = [batches.get()]
-            while not batches.empty():
+            while come[-1] is not _READ and (len(come) < EARLY_BATCHES or not batches.empty()):
                 come.append(batches.get())
             ended = come[-1] is _READ
             for part in _split(come[:-1] if ended else come):
