@@ -183,3 +183,21 @@ def test_arrow_to_numpy_keeps_offsets_and_fills_nulls() -> None:
     assert to_numpy(flags, False).tolist() == [True, True, False, True, False, True]
     codes = pa.array([7, None, 9], pa.int32())
     assert to_numpy(codes, -1).tolist() == [7, -1, 9]
+
+
+@pytest.mark.parametrize("stray_quote", [False, True])
+def test_numbers_worked_out_while_the_file_is_read_change_nothing(tmp_path, monkeypatch: pytest.MonkeyPatch,
+                                                                  stray_quote: bool) -> None:
+    from studylog import profiling
+    from studylog.data import profile, read_whole
+
+    monkeypatch.setattr(read_whole, "WHOLE_BLOCK", 1 << 10)  # many batches
+    rng = np.random.default_rng(7)
+    rows = [f"{i},{rng.normal():.3f},{'' if i % 13 == 0 else rng.integers(0, 9)},g{i % 3}" for i in range(3000)]
+    if stray_quote:
+        rows[5] = '5,1.5,x"y,g2'  # an odd number of quotes: the whole-file read is given up
+    path = tmp_path / "x.csv"
+    path.write_text("id,x,n,g\n" + "\n".join(rows) + "\n")
+    early = profiling.profile_file(path, target="g")
+    monkeypatch.setattr(profile.EarlyFloats, "add", lambda self, batches: None)
+    assert json.dumps(early, sort_keys=True) == json.dumps(profiling.profile_file(path, target="g"), sort_keys=True)
