@@ -213,3 +213,12 @@ def test_floats_worked_out_batch_by_batch_grow_past_the_expected_rows() -> None:
     chunked = pa.Table.from_batches(batches)
     expected = cells.to_numpy(cells.float_values(chunked.column("x")), np.nan)
     assert early.take(chunked, ["x"])["x"].tobytes() == expected.tobytes()
+
+
+def test_no_floats_worked_out_early_for_a_wide_table() -> None:
+    from studylog.data.profile import EARLY_COLUMNS, EarlyFloats
+
+    table = pa.table({f"c{i}": pa.array(["1"], pa.string()) for i in range(EARLY_COLUMNS + 1)})
+    early = EarlyFloats()
+    early.add(table.to_batches())
+    assert early.take(table, table.column_names) == {}

@@ -60,6 +60,11 @@ def _ordinal_rank(levels: Sequence[str], spec: VariableSpec) -> np.ndarray:
     return rank
 
 
+# wider tables are left to the columns' own work: their batches hold few rows each, and the calls
+# per batch and column would cost more than the casts
+EARLY_COLUMNS = 256
+
+
 class EarlyFloats:
     """Each column's texts as float64 values with NaN for nulls (``cells.float_values``, then
     ``to_numpy``), worked out a batch at a time while the file is still being read, on the core the
@@ -82,6 +87,9 @@ class EarlyFloats:
             return
         rows = sum(batch.num_rows for batch in batches)
         if not self._lengths:
+            if batches[0].num_columns > EARLY_COLUMNS:
+                self.give_up()
+                return
             room = int(max(batches[0].num_rows, 1) * self._expected * 1.05) + rows + 1024
             self._values = [np.empty(room) for _ in range(batches[0].num_columns)]
         start, end = self._rows, self._rows + rows
