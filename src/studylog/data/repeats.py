@@ -3,7 +3,8 @@
 The ``unique``, ``key`` and ``repeated-row`` checks must know whether a row repeats any earlier row of a
 file far larger than memory. They keep one digest per distinct value, never the values: the first
 64-bit lane of the 16-byte digest (:class:`SeenDigests`, whose docstring states the chance of a false
-repeat), so memory is bounded by rows x 8 bytes per rule, whatever the width of the data.
+repeat), of which large runs keep half in memory and half in a temporary file, so memory is bounded by
+rows x 4 bytes per rule, whatever the width of the data.
 
 The digest of a text is computed with numpy over Arrow's buffers, a whole column at a time: the UTF-8
 bytes are read as little-endian 64-bit words (zero-padded), each word is folded into two independently
