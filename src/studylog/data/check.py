@@ -6,9 +6,11 @@ closures); :class:`Checker` evaluates every rule on each record batch with vecto
 :class:`Tally` per rule, and tallies of successive batches merge (counts add, the 20 smallest example rows
 are kept, extremes combine). The result is the same whether a file is read whole or in batches of one row.
 
-Three rules carry state from batch to batch: ``unique``, ``key`` and ``repeated-row`` keep a 16-byte digest
-per distinct value seen (``studylog.data.repeats``), so memory is bounded by rows x 16 bytes per rule,
-never by the width of the data. Every other rule is a pure function of its batch.
+Three rules carry state from batch to batch: ``unique``, ``key`` and ``repeated-row`` keep a digest per
+distinct value seen (``studylog.data.repeats.SeenDigests``: 4 bytes a row in memory, the rest in a
+temporary file), so memory is bounded by the rows, never by the width of the data. The key rule hands
+the rows whose key repeats to the repeated-row rule (``BatchContext.hand_over``). Every other rule is a
+pure function of its batch.
 
 Counting conventions (DESIGN.md, "Command contract"): ``count`` counts offending rows (column findings,
 ``absent-column``/``undeclared-column``/``renamed-column``, count 1: the column); for ``unique``, ``key``
@@ -131,6 +133,7 @@ class BatchContext:
         self._digests: dict[str, Any] = {}
         self._key_digest: Any = None
         self._row_digest: Any = None
+        self._handed: dict[str, Any] = {}
         # the rules and the observers run in two threads over the same batch: each shared value is
         # computed once, the second asker waits for the first (one lock per value)
         self._guard = threading.Lock()
@@ -142,6 +145,15 @@ class BatchContext:
             if lock is None:
                 lock = self._locks[(kind, name)] = threading.Lock()
             return lock
+
+    def hand_over(self, name: str, value: Any) -> None:
+        """Leave a value one rule computed for a later rule of the plan on this batch (the rules run
+        in plan order, in one thread)."""
+        self._handed[name] = value
+
+    def handed(self, name: str) -> Any:
+        """What an earlier rule left under ``name`` on this batch, or None."""
+        return self._handed.get(name)
 
     def column(self, name: str) -> Any:
         """The raw strings of a file column."""

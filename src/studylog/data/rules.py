@@ -27,8 +27,6 @@ repeated-row        warning     any row equal in every column to an earlier row
 
 from __future__ import annotations
 
-import threading
-import weakref
 from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -313,18 +311,8 @@ class UniqueRule(_Remembering):
                                      "row (first occurrences not counted); values must be unique")
 
 
-# the rows of the latest batch whose key repeats or is missing, from the key rule to the repeated-row
-# rule of the same plan (rules run in plan order, in one thread per check)
-_handed = threading.local()
-
-
-def _key_repeats(context: BatchContext) -> Any:
-    """The key rule's offending rows of this batch; None (every row looked up) if it has not run on it."""
-    last = getattr(_handed, "last", None)
-    if last is None or last[0]() is not context:
-        return None
-    _handed.last = None
-    return last[1]
+# what the key rule hands over to the repeated-row rule on each batch (BatchContext.hand_over)
+KEY_OFFENDING = "key-offending"
 
 
 @dataclass(frozen=True)
@@ -351,7 +339,7 @@ class KeyRule(_Remembering):
         keyed = ~absent
         repeat[keyed] = state.observe(hi[keyed], lo[keyed])
         offending = repeat | absent
-        _handed.last = (weakref.ref(context), offending)
+        context.hand_over(KEY_OFFENDING, offending)
         count = int(offending.sum())
         examples = context.examples(offending, list(self.columns)) if count else []
         return Tally(count, examples, other=int(absent.sum()))
@@ -394,7 +382,7 @@ class RepeatedRowRule(_Remembering):
 
     def evaluate(self, context: BatchContext, state: Any) -> Tally:
         hi, lo = context.row_digest()
-        repeat = state.observe(hi, lo, looked_up=_key_repeats(context) if self.keyed else None)
+        repeat = state.observe(hi, lo, looked_up=context.handed(KEY_OFFENDING) if self.keyed else None)
         count = int(repeat.sum())
         shown = list(context.plan.key_columns) or list(self.columns)
         return Tally(count, context.examples(repeat, shown) if count else [])
