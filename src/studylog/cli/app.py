@@ -242,11 +242,24 @@ def __getattr__(name: str) -> typer.Typer:
     raise AttributeError(name)
 
 
+# commands that can do their work without a study: the store's library is loaded only if they open one
+STORELESS = frozenset({"profile"})
+
+
+def _load_the_store() -> None:
+    """Import SQLAlchemy and the models now, while the collector rests (``_Startup``): every command but
+    the store-less ones needs them, and their ~60,000 lasting objects would otherwise be scanned by the
+    collector again and again as the command imports them."""
+    import studylog.store.models  # noqa: F401
+
+
 def run() -> None:
     """Console-script entry point: builds only the command being run, for a fast start."""
     name = _command_of(sys.argv[1:])
     module = _module_of(sys.argv[1:])
     with _startup.pausing():
+        if name is not None and name not in STORELESS:
+            _load_the_store()
         if name is None or module is None:
             build_app()()
         else:
