@@ -82,7 +82,7 @@ def main() -> None:
 
     from studylog.clock import now
     from studylog.comparison import load_records
-    from studylog.data.digests import compare_records
+    from studylog.data.record_comparison import compare_records
     from studylog.store.models import DataTable, DigestChunk, Drop
     from studylog.store.session import dispose_engines, locate, transaction
     from studylog.study import create

@@ -40,7 +40,8 @@ from studylog.store.models import DataTable, DigestChunk, Drop, Finding, Profile
 if TYPE_CHECKING:
     from studylog.data.check import BatchContext
     from studylog.data.check import Finding as CheckFinding
-    from studylog.data.digests import OrphanCheck, RecordDigester, Records
+    from studylog.data.digests import RecordDigester, Records
+    from studylog.data.record_comparison import OrphanCheck
     from studylog.data.spec import TableSpec
 
 
@@ -179,7 +180,7 @@ class Tracker:
         return outcome
 
     def _records(self, session: Session, later: Records) -> dict[str, Any]:
-        from studylog.data.digests import compare_records
+        from studylog.data.record_comparison import compare_records
 
         if self.earlier is None:
             return {"against": None, "new": None, "vanished": None, "changed": None,
@@ -248,7 +249,7 @@ def start(session: Session, table: DataTable, spec: TableSpec, columns: list[str
 
 def _prepare_orphans(session: Session, tracker: Tracker, variable: Any) -> None:
     from studylog.data.check import Finding as CheckFinding
-    from studylog.data.digests import OrphanCheck
+    from studylog.data.record_comparison import OrphanCheck
     from studylog.dictionary import find_table
 
     def note(message: str) -> None:
@@ -365,7 +366,7 @@ def drift_between(session: Session, earlier_id: int | None = None, later_id: int
     With one id: that drop and its predecessor.
     """
     from studylog.data import drift
-    from studylog.data.digests import compare_records
+    from studylog.data.record_comparison import compare_records
     from studylog.dictionary import resolve_table
 
     if earlier_id is not None and later_id is not None:

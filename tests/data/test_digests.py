@@ -10,14 +10,9 @@ import pyarrow as pa
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from studylog.data import digests
-from studylog.data.digests import (
-    OrphanCheck,
-    RecordDigester,
-    Records,
-    compare_records,
-    digest_values,
-)
+from studylog.data import digests, record_comparison
+from studylog.data.digests import RecordDigester, Records, digest_values
+from studylog.data.record_comparison import OrphanCheck, compare_records
 from studylog.data.repeats import combine, text_digests
 
 
@@ -152,14 +147,14 @@ def test_keys_sharing_their_top_bits_stay_distinct() -> None:
     k0 = np.full(40, 0xABCD_0000_0000_0000, dtype=np.uint64) + rng.integers(0, 4, 40).astype(np.uint64)
     k1 = rng.integers(1, 6, 40).astype(np.uint64)
     digests_ = np.column_stack([k0, k1, np.ones(40, np.uint64), np.ones(40, np.uint64)])
-    first, repeats = digests.unique_keys(digests_)
+    first, repeats = record_comparison.unique_keys(digests_)
     pairs = list(zip(k0.tolist(), k1.tolist()))
     expected_first = sorted({p: i for i, p in reversed(list(enumerate(pairs)))}.values())
     assert sorted(first.tolist()) == expected_first
     assert len(repeats) == 40 - len(expected_first)
     ordered = [pairs[i] for i in first]
     assert [a for a, _ in ordered] == sorted(a for a, _ in ordered)
-    found = digests.lookup(k0[first], k1[first], k0, k1)
+    found = record_comparison.lookup(k0[first], k1[first], k0, k1)
     assert all(pairs[first[f]] == p for f, p in zip(found, pairs))
 
 
