@@ -141,7 +141,7 @@ def _update_summaries(summaries: dict[str, Any], context: Any) -> None:
     for name, summary in summaries.items():
         column = bound.get(name)
         if column is None:
-            summary.update(context.column(name))
+            summary.update(context.column(name), digests=lambda name=name: context.digest(name)[0])
         else:
             summary.update(context.column(column), parsed=context.parsed(name),
                            digests=lambda column=column: context.digest(column)[0],

@@ -262,3 +262,23 @@ def test_withheld_columns_count_distinct_values_as_the_level_counts_do(monkeypat
         assert profile["levels_other"] == sum(lv["count"] for lv in levels) + other == len(values)
         assert (profile["distinct"], profile["distinct_exact"]) == (distinct, exact)
         assert exact is (top < 2_000)
+
+
+def test_an_undeclared_columns_summary_from_the_checks_digests_equals_the_one_from_the_text(monkeypatch) -> None:
+    # an undeclared column is summarised from its raw text (no variable to read it as); the check hands
+    # over its cell digests so that the distinct count does not hash the texts again
+    from studylog.data import summary as module
+    from studylog.data.repeats import text_digests
+
+    monkeypatch.setattr(module, "LEVEL_LIMIT", 1_000)
+    rng = np.random.default_rng(2)
+    for top in (500, 5_000):
+        values = [f"note {v}" if v % 7 else " " for v in rng.integers(0, top, 6_000)]
+        direct, reused = ColumnSummary(None, "text", name="extra"), ColumnSummary(None, "text", name="extra")
+        array = pa.array(values, pa.string())
+        for start in range(0, len(array), 1_000):
+            part = array.slice(start, 1_000)
+            direct.update(part)
+            reused.update(part, digests=lambda part=part: text_digests(part)[0])
+        assert reused.to_dict() == direct.to_dict()
+        assert direct.to_dict()["distinct_exact"] is (top < 1_000)

@@ -414,8 +414,8 @@ class ColumnSummary:
             index = pc.index_in(trimmed, value_set=pa.array(self.codes, trimmed.type))
             self._count_codes(index)
             missing = pc.or_(missing, pc.is_valid(index))
-        present_raw = pc.filter(strings, pc.invert(missing))
-        present = pc.filter(trimmed, pc.invert(missing))
+        kept = pc.invert(missing)
+        present = pc.filter(trimmed, kept)
         self.present += len(present)
         if self.numeric is not None:
             numbers = _finite_numbers(present)
@@ -424,7 +424,9 @@ class ColumnSummary:
         elif self.dates is not None:
             self._update_dates(present)
         else:
-            self.levels.update(present_raw)
+            present_digests = None if digests is None else (
+                lambda: digests()[kept.to_numpy(zero_copy_only=False)])
+            self.levels.update(pc.filter(strings, kept), present_digests)
 
     def _count_codes(self, index: pa.Array) -> None:
         import numpy as np
