@@ -10,6 +10,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from studylog.data.spec import Code, VariableSpec
+from studylog.data import distinct as distinct_module
 from studylog.data.summary import EXACT_LIMIT, ColumnSummary, decode_sketch, kll_error
 
 NUMBER = VariableSpec(name="x", type="number", missing_codes=(Code("-99", "refused"), Code("-98")))
@@ -168,7 +169,7 @@ def test_distinct_estimate_from_the_checks_digests_equals_the_one_from_the_text(
     from studylog.data.typed import parse
 
     monkeypatch.setattr(module, "LEVEL_LIMIT", 1_000)
-    monkeypatch.setattr(module, "KMV_K", 256)
+    monkeypatch.setattr(distinct_module, "KMV_K", 256)
     spec = VariableSpec(name="x", type="identifier", missing_codes=(Code("-99"),))
     rng = np.random.default_rng(7)
     values = [f"id-{v}" if v % 50 else "-99" for v in rng.integers(0, 30_000, 20_000)]
@@ -247,7 +248,7 @@ def test_withheld_columns_count_distinct_values_as_the_level_counts_do(monkeypat
     from studylog.data import summary as module
 
     monkeypatch.setattr(module, "LEVEL_LIMIT", 2_000)
-    monkeypatch.setattr(module, "KMV_K", 256)
+    monkeypatch.setattr(distinct_module, "KMV_K", 256)
     rng = np.random.default_rng(3)
     for top in (1_500, 40_000):
         values = [f"p{v}@example.org" for v in rng.integers(0, top, 10_000)]

@@ -17,6 +17,8 @@ from __future__ import annotations
 import base64
 from typing import TYPE_CHECKING, Any
 
+from studylog.data.distinct import DistinctEstimate, hash_values
+
 if TYPE_CHECKING:
     import numpy as np
 
@@ -41,8 +43,6 @@ class NumericSummary:
 
     def __init__(self) -> None:
         import numpy as np
-
-        from studylog.data.summary import DistinctEstimate
 
         self.n = 0
         self.mean = 0.0
@@ -70,8 +70,6 @@ class NumericSummary:
         if self.uniques is not None:
             self._add_uniques(*np.unique(x, return_counts=True))
         else:
-            from studylog.data.summary import hash_values
-
             # the sketch's binding needs a writable array it may not keep: a copy
             self.sketch.update(np.array(x, dtype=np.float64, copy=True))
             # k minimum values of a set = of the multiset: no need to make the batch's values unique
@@ -99,8 +97,6 @@ class NumericSummary:
 
     def _overflow(self) -> None:
         """Too many distinct values to count: the sketch and the distinct estimate take over."""
-        from studylog.data.summary import hash_values
-
         assert self.uniques is not None
         self.sketch = _sketch_of_counts(self.uniques, self.unique_counts)
         self.distinct.add_hashes(hash_values(self.uniques))
@@ -117,8 +113,6 @@ class NumericSummary:
         self.n = total
 
     def merge(self, other: NumericSummary) -> None:
-        from studylog.data.summary import hash_values
-
         self._combine(other.n, other.mean, other.m2)
         self.minimum = min(self.minimum, other.minimum)
         self.maximum = max(self.maximum, other.maximum)

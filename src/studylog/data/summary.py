@@ -45,6 +45,7 @@ import base64
 from collections.abc import Callable
 from typing import TYPE_CHECKING, Any
 
+from studylog.data.distinct import DistinctEstimate, hash_values
 from studylog.data.numeric_summary import EXACT_LIMIT, KLL_K, NumericSummary, kll_error
 from studylog.data.numeric_summary import number as _number
 from studylog.data.spec import NUMERIC_TYPES, VariableSpec
@@ -55,7 +56,6 @@ if TYPE_CHECKING:
 
 LEVEL_LIMIT = 100_000
 LEVELS_STORED = 1_000
-KMV_K = 4096
 NUMBER_PATTERN = r"^[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?$"
 DEFAULT_DATE_FORMAT = "%Y-%m-%d"
 DATETIME_FORMATS = ("%Y-%m-%dT%H:%M:%S", "%Y-%m-%d %H:%M:%S", "%Y-%m-%dT%H:%M", "%Y-%m-%d %H:%M")
@@ -68,81 +68,6 @@ def decode_sketch(text: str):  # type: ignore[no-untyped-def]
     from datasketches import kll_doubles_sketch
 
     return kll_doubles_sketch.deserialize(base64.b64decode(text))
-
-
-class DistinctEstimate:
-    """k minimum values of a 64-bit hash: a mergeable distinct-count estimate (Bar-Yossef et al. 2002)."""
-
-    def __init__(self) -> None:
-        import numpy as np
-
-        self.smallest = np.empty(0, dtype=np.uint64)
-
-    def add_hashes(self, hashes: np.ndarray) -> None:
-        import numpy as np
-
-        hashes = hashes.astype(np.uint64, copy=False)
-        if len(self.smallest) == KMV_K:
-            # only hashes below the k-th smallest so far can change the estimate
-            hashes = hashes[hashes < self.smallest[-1]]
-        candidates = np.concatenate([self.smallest, hashes])
-        # the k smallest distinct values are among the m smallest values (with repeats) once those
-        # hold k distinct ones: a partition, then a sort of only those
-        m = KMV_K
-        while True:
-            if m >= len(candidates):
-                merged = np.unique(candidates)
-                break
-            threshold = np.partition(candidates, m - 1)[m - 1]
-            merged = np.unique(candidates[candidates <= threshold])
-            if len(merged) >= KMV_K:
-                break
-            m *= 2
-        self.smallest = merged[:KMV_K]
-
-    def add_values(self, values: pa.Array | np.ndarray) -> None:
-        self.add_hashes(hash_values(values))
-
-    def merge(self, other: DistinctEstimate) -> None:
-        self.add_hashes(other.smallest)
-
-    def estimate(self) -> int:
-        if len(self.smallest) < KMV_K:
-            return int(len(self.smallest))
-        kth = float(self.smallest[KMV_K - 1]) / 2.0**64
-        return int(round((KMV_K - 1) / kth))
-
-
-def hash_values(values: pa.Array | np.ndarray) -> np.ndarray:
-    """A 64-bit hash per value, vectorised without pandas.
-
-    Text: the first lane of ``repeats.text_digests`` (the check's own cell digest); numbers: the bits of
-    the float64 (``-0.0`` folded onto ``0.0``) through the SplitMix64 finaliser. Only the k smallest
-    hashes matter (k-minimum-values), so any well-mixed 64-bit hash does.
-    """
-    import numpy as np
-    import pyarrow as pa
-
-    from studylog.data.repeats import _finalise, text_digests
-
-    if isinstance(values, pa.ChunkedArray):
-        values = values.combine_chunks()
-    if isinstance(values, pa.Array):
-        if pa.types.is_string(values.type) or pa.types.is_large_string(values.type):
-            return text_digests(values)[0]
-        values = values.to_numpy(zero_copy_only=False)
-    numbers = np.asarray(values)
-    if numbers.dtype.kind in "iub":
-        numbers = numbers.astype(np.float64)
-    if numbers.dtype.kind == "M":
-        numbers = numbers.astype(np.int64).astype(np.float64)
-    if numbers.dtype.kind == "f":
-        bits = (numbers.astype(np.float64) + 0.0).view(np.uint64)
-        with np.errstate(over="ignore"):
-            return _finalise(bits ^ np.uint64(0x9E3779B97F4A7C15))
-    import pyarrow as pa  # other objects: through their text
-
-    return text_digests(pa.array([str(v) for v in numbers], pa.string()))[0]
 
 
 class LevelCounts:
