@@ -260,7 +260,11 @@ def counted_outliers(values: np.ndarray, counts: np.ndarray) -> dict[str, int | 
     deviations = np.abs(values - median)
     order = np.argsort(deviations, kind="stable")
     mad = _counted_median(deviations[order], np.cumsum(counts[order]), 0, n)
-    modified = None if mad == 0 else int(counts[np.abs(0.6745 * (values - median) / mad) > 3.5].sum())
+    modified = None
+    if mad != 0:
+        # a MAD of a few ulps makes far values' scores overflow to inf, which is beyond 3.5 as it should be
+        with np.errstate(over="ignore"):
+            modified = int(counts[np.abs(0.6745 * (values - median) / mad) > 3.5].sum())
     return {"tukey": int(counts[inner].sum()), "tukey_far": int(counts[outer].sum()), "modified_z": modified}
 
 
