@@ -32,3 +32,19 @@ def test_merged_parts_keep_the_k_smallest_of_the_union() -> None:
     # the reference: numpy's own k smallest distinct values of all the hashes
     assert np.array_equal(left.smallest, np.unique(hashes)[:KMV_K])
     assert np.array_equal(whole.smallest, left.smallest)
+
+
+def test_merge_sorted_equals_numpys_union_and_summed_counts() -> None:
+    # the reference: np.unique over both with their counts added by np.bincount
+    from studylog.data.distinct import merge_sorted
+
+    rng = np.random.default_rng(8)
+    for _ in range(50):
+        a = np.unique(rng.integers(0, 60, rng.integers(0, 30)).astype(np.float64))
+        b = np.unique(rng.integers(0, 60, rng.integers(1, 30)).astype(np.float64))
+        ca, cb = rng.integers(1, 9, len(a)), rng.integers(1, 9, len(b))
+        values, counts = merge_sorted(a, b, ca, cb)
+        union, index = np.unique(np.concatenate([a, b]), return_inverse=True)
+        assert np.array_equal(values, union)
+        assert np.array_equal(counts, np.bincount(index, weights=np.concatenate([ca, cb]), minlength=len(union)))
+        assert np.array_equal(merge_sorted(a, b)[0], union) and merge_sorted(a, b)[1] is None

@@ -11,7 +11,8 @@ from hypothesis import strategies as st
 
 from studylog.data.spec import Code, VariableSpec
 from studylog.data import distinct as distinct_module
-from studylog.data.summary import EXACT_LIMIT, ColumnSummary, decode_sketch, kll_error
+from studylog.data.numeric_summary import EXACT_LIMIT, decode_sketch, kll_error
+from studylog.data.summary import ColumnSummary
 
 NUMBER = VariableSpec(name="x", type="number", missing_codes=(Code("-99", "refused"), Code("-98")))
 

@@ -42,7 +42,7 @@ class _Startup:
     """The cyclic garbage collector rests while a command starts, and the command runs with it as usual.
 
     Starting a command makes some 80,000 objects that live until the process ends (the modules of typer,
-    click, pydantic and SQLAlchemy, our models, the command tree) and next to no garbage. Collecting while
+    click and SQLAlchemy, our models, the command tree) and next to no garbage. Collecting while
     they are made only scans them again and again: a tenth of a short command's time, more on a busy
     machine. So :func:`run` pauses the collector until the command's own function is called; then what
     exists is frozen (``gc.freeze``: kept, never scanned again; the hundred-odd unreachable objects of the

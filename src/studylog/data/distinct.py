@@ -90,3 +90,23 @@ def hash_values(values: pa.Array | np.ndarray) -> np.ndarray:
     import pyarrow as pa  # other objects: through their text
 
     return text_digests(pa.array([str(v) for v in numbers], pa.string()))[0]
+
+
+def merge_sorted(values: np.ndarray, new: np.ndarray, counts: np.ndarray | None = None,
+                 new_counts: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray | None]:
+    """The sorted distinct ``values`` with the sorted distinct ``new`` ones added, and with ``counts``
+    (when given) grown by ``new_counts``: a search and an insertion, no sort of the whole."""
+    import numpy as np
+
+    position = np.searchsorted(values, new)
+    found = position < len(values)
+    found[found] = values[position[found]] == new[found]
+    if counts is not None and new_counts is not None:
+        counts = counts.copy()
+        counts[position[found]] += new_counts[found]
+    fresh = ~found
+    if fresh.any():
+        values = np.insert(values, position[fresh], new[fresh])
+        if counts is not None and new_counts is not None:
+            counts = np.insert(counts, position[fresh], new_counts[fresh])
+    return values, counts

@@ -101,7 +101,7 @@ def numeric_shares(profile: dict[str, Any], edges: list[float]) -> tuple[list[fl
         value_shares = np.bincount(index, weights=counts, minlength=len(edges) + 1) / counts.sum()
         exact = True
     elif profile.get("sketch"):
-        from studylog.data.summary import decode_sketch
+        from studylog.data.numeric_summary import decode_sketch
 
         sketch = decode_sketch(profile["sketch"])
         cdf = np.asarray(sketch.get_cdf(edges) if edges else [1.0], dtype=float)  # P(X <= edge), inclusive

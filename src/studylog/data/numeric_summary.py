@@ -17,7 +17,7 @@ from __future__ import annotations
 import base64
 from typing import TYPE_CHECKING, Any
 
-from studylog.data.distinct import DistinctEstimate, hash_values
+from studylog.data.distinct import DistinctEstimate, hash_values, merge_sorted
 
 if TYPE_CHECKING:
     import numpy as np
@@ -36,6 +36,13 @@ def kll_error() -> float:
     from datasketches import kll_doubles_sketch
 
     return float(kll_doubles_sketch.get_normalized_rank_error(KLL_K, False))
+
+
+def decode_sketch(text: str):  # type: ignore[no-untyped-def]
+    """The KLL sketch stored in a profile's "sketch" field."""
+    from datasketches import kll_doubles_sketch
+
+    return kll_doubles_sketch.deserialize(base64.b64decode(text))
 
 
 class NumericSummary:
@@ -80,18 +87,10 @@ class NumericSummary:
         import numpy as np
 
         assert self.uniques is not None
-        counts = counts.astype(np.int64, copy=False)
-        if len(self.uniques) == 0:
-            self.uniques, self.unique_counts = values.copy(), counts.copy()
-        else:
-            position = np.searchsorted(self.uniques, values)
-            found = position < len(self.uniques)
-            found[found] = self.uniques[position[found]] == values[found]
-            self.unique_counts[position[found]] += counts[found]
-            new = ~found
-            if new.any():
-                self.uniques = np.insert(self.uniques, position[new], values[new])
-                self.unique_counts = np.insert(self.unique_counts, position[new], counts[new])
+        merged, merged_counts = merge_sorted(self.uniques, values, self.unique_counts,
+                                             counts.astype(np.int64, copy=False))
+        assert merged_counts is not None
+        self.uniques, self.unique_counts = merged, merged_counts
         if len(self.uniques) > EXACT_LIMIT:
             self._overflow()
 

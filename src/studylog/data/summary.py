@@ -41,13 +41,11 @@ and ``levels_withheld`` is true. Profiles are unweighted.
 
 from __future__ import annotations
 
-import base64
 from collections.abc import Callable
 from typing import TYPE_CHECKING, Any
 
-from studylog.data.distinct import DistinctEstimate, hash_values
-from studylog.data.numeric_summary import EXACT_LIMIT, KLL_K, NumericSummary, kll_error
-from studylog.data.numeric_summary import number as _number
+from studylog.data.distinct import DistinctEstimate, hash_values, merge_sorted
+from studylog.data.numeric_summary import NumericSummary
 from studylog.data.spec import NUMERIC_TYPES, VariableSpec
 
 if TYPE_CHECKING:
@@ -61,13 +59,6 @@ DEFAULT_DATE_FORMAT = "%Y-%m-%d"
 DATETIME_FORMATS = ("%Y-%m-%dT%H:%M:%S", "%Y-%m-%d %H:%M:%S", "%Y-%m-%dT%H:%M", "%Y-%m-%d %H:%M")
 DATE_TYPES = ("date", "datetime")
 WITHHELD_SENSITIVITY = ("direct-identifier",)
-
-
-def decode_sketch(text: str):  # type: ignore[no-untyped-def]
-    """The KLL sketch stored in a profile's "sketch" field."""
-    from datasketches import kll_doubles_sketch
-
-    return kll_doubles_sketch.deserialize(base64.b64decode(text))
 
 
 class LevelCounts:
@@ -258,12 +249,7 @@ class WithheldCounts:
         if self.seen is None:
             self.distinct.add_hashes(digests)
             return
-        new = np.unique(digests.astype(np.uint64, copy=False))
-        position = np.searchsorted(self.seen, new)
-        found = position < len(self.seen)
-        found[found] = self.seen[position[found]] == new[found]
-        if not found.all():
-            self.seen = np.insert(self.seen, position[~found], new[~found])
+        self.seen, _ = merge_sorted(self.seen, np.unique(digests.astype(np.uint64, copy=False)))
         if len(self.seen) > LEVEL_LIMIT:
             self.distinct.add_hashes(self.seen)
             self.seen = None

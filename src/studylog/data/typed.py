@@ -149,35 +149,17 @@ def _integers(present: Any) -> Any:
     import pyarrow as pa
     import pyarrow.compute as pc
 
-    # Arrow also reads hexadecimal ('0x10') and more than 18 digits, which are not integers here
+    # Arrow also reads hexadecimal ('0x10') and more than 18 digits, which are not integers here: the
+    # cast is of the cells holding only characters an integer has (no 'x'), the others being invalid
     longest = pc.max(pc.binary_length(present)).as_py()
     if longest is None or longest <= 18:
-        values = _whole_cast(present, pa.int64())
-        if values is not None and not _holds_letter_x(present):
+        values = _whole_cast(_without_cells_holding_other_than(present, INTEGER_CHARACTERS), pa.int64())
+        if values is not None:
             return pc.cast(values, pa.float64(), safe=False)
-        if values is None:
-            # as for numbers: without the cells holding a character no integer has (an 'x' among them)
-            values = _whole_cast(_without_cells_holding_other_than(present, INTEGER_CHARACTERS), pa.int64())
-            if values is not None:
-                return pc.cast(values, pa.float64(), safe=False)
     ok = pc.match_substring_regex(present, INTEGER_PATTERN)
     # Arrow's cast refuses a leading '+', which the definition allows
     digits = pc.replace_substring_regex(pc.if_else(ok, present, None), r"^\+|\.0*$", "")
     return pc.cast(pc.cast(digits, pa.int64()), pa.float64(), safe=False)
-
-
-def _holds_letter_x(strings: Any) -> bool:
-    """Whether an 'x' or 'X' is anywhere in the array's character data (bytes beyond a slice count too,
-    which only sends a clean column the slower way)."""
-    import numpy as np
-    import pyarrow as pa
-
-    if isinstance(strings, pa.ChunkedArray):
-        return any(_holds_letter_x(chunk) for chunk in strings.chunks)
-    data = strings.buffers()[2]
-    if data is None:
-        return False
-    return bool(((np.frombuffer(data, dtype=np.uint8) | 0x20) == ord("x")).any())
 
 
 # the characters of the texts of valid integers and numbers (a cell with any other is invalid)
@@ -191,12 +173,16 @@ def _without_cells_holding_other_than(strings: Any, allowed: str) -> Any:
     import pyarrow as pa
     import pyarrow.compute as pc
 
+    if isinstance(strings, pa.ChunkedArray):
+        strings = strings.combine_chunks()
     _, offsets_buffer, data_buffer = strings.buffers()
-    if data_buffer is None or not pa.types.is_string(strings.type):
+    if data_buffer is None:
         return strings
     refused = np.ones(256, dtype=bool)
     refused[np.frombuffer(allowed.encode("ascii"), dtype=np.uint8)] = False
-    offsets = np.frombuffer(offsets_buffer, dtype=np.int32, count=len(strings) + 1, offset=strings.offset * 4)
+    width = np.dtype(np.int64 if pa.types.is_large_string(strings.type) else np.int32)
+    offsets = np.frombuffer(offsets_buffer, dtype=width, count=len(strings) + 1,
+                            offset=strings.offset * width.itemsize)
     data = np.frombuffer(data_buffer, dtype=np.uint8)[offsets[0]:offsets[-1]]
     # the few refused bytes, and the cells they fall in
     where = np.flatnonzero(refused[data]) + offsets[0]

@@ -32,12 +32,12 @@ from studylog.errors import (
     UsageError,
 )
 
-STORE_FILE = "studylog.db"
-ENV_STORE = "STUDYLOG_STORE"
 if TYPE_CHECKING:
     from sqlalchemy.engine import Engine
     from sqlalchemy.orm import Session
 
+STORE_FILE = "studylog.db"
+ENV_STORE = "STUDYLOG_STORE"
 BUSY_TIMEOUT_MS = 10_000
 # Tests of lock contention lower the wait so that they stay fast; users keep the default.
 ENV_BUSY_TIMEOUT = "STUDYLOG_BUSY_TIMEOUT_MS"
