@@ -44,11 +44,13 @@ def check(
     different --label is given. Exit codes: 0 no finding at or above --fail-on, 1 there is one,
     2 bad input (nothing recorded).
     """
+    from studylog.data import runtime
+
+    runtime.one_blas_thread()
     from studylog import drops
-    from studylog.data.runtime import prefer_jemalloc
     from studylog.errors import ChecksFailed, UsageError
 
-    prefer_jemalloc()
+    runtime.prefer_jemalloc()
     if fail_on not in drops.FAIL_ON:
         raise UsageError(f"--fail-on must be one of {', '.join(drops.FAIL_ON)}, not '{fail_on}'")
     unit = reading() if no_record else writing()

@@ -44,14 +44,16 @@ def profile(
     Types and missing codes come from the study's dictionary when the file's table is in it, else from
     inference; no study is needed.
     """
+    from studylog.data import runtime
+
+    runtime.one_blas_thread()
     from studylog import profiling
     from studylog.cli.common import location
-    from studylog.data.runtime import prefer_jemalloc, reuse_freed_memory
     from studylog.errors import NoStudyFound
 
-    reuse_freed_memory()
-    prefer_jemalloc()
-    _small_pages()
+    runtime.reuse_freed_memory()
+    runtime.prefer_jemalloc()
+    runtime.small_pages()
     try:
         where = location()
     except NoStudyFound:
@@ -67,22 +69,6 @@ def profile(
 
 
 profile.__doc__ = f"{profile.__doc__}\n\n{DEFINITIONS}"
-
-
-def _small_pages() -> None:
-    """Keep numpy from asking the kernel for huge pages for its arrays of 4 MB or more.
-
-    The profile makes and drops hundreds of column-sized arrays; where the kernel grants huge pages
-    only on request (``madvise``), each one is zeroed and often compacted for when faulted in, which
-    cost the profile more system time than the fewer faults saved (a tenth of a second, and most of
-    its variation from run to run). A choice for the whole process, so made by the command only.
-    """
-    import numpy as np
-
-    core = getattr(np, "_core", None) or getattr(np, "core", None)
-    switch = getattr(getattr(core, "multiarray", None), "_set_madvise_hugepage", None)
-    if switch is not None:
-        switch(False)
 
 def _num(value: Any) -> str:
     """A number for the screen: whole numbers as they are, else four significant digits, and no

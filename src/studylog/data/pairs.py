@@ -48,7 +48,7 @@ class RankBase:
 
     valid: np.ndarray  # bool
     sorted_values: np.ndarray
-    group_row: np.ndarray  # tie-group number of each row, as intp (0 where missing; never read there)
+    group_row: np.ndarray  # tie-group number of each row, as intp (``groups`` where missing)
     groups: int
     group_counts: np.ndarray  # rows in each tie group
     centre: float = 0.0
@@ -63,6 +63,7 @@ class RankBase:
         invalid = ~self.valid
         self.centred[invalid] = 0.0
         self.missing_rows = np.flatnonzero(invalid)
+        self.group_row[self.missing_rows] = self.groups  # a slot after the groups (pair_ranks)
         self.total = float(self.centred.sum())
         self.total_squares = _dot(self.centred, self.centred)
         return self
@@ -117,18 +118,19 @@ class RankBase:
         average = _average_ranks(counts)
         return average[group], counts, average
 
-    def pair_ranks(self, other: RankBase, both: np.ndarray) -> tuple[np.ndarray, float]:
-        """``rank_sums`` on the rows where both columns are present (``both``, a mask).
+    def pair_ranks(self, other: RankBase) -> tuple[np.ndarray, float]:
+        """Average ranks among the rows where both columns are present, for every row (0 where this
+        column is missing), and the sum of their squares over the pair's rows.
 
         The pair's tie groups are this column's less the rows where only the other is missing (few,
-        usually): no pair counts all its rows again."""
+        usually): no pair counts all its rows again. A row where only the other is missing keeps a rank
+        here, which the other's 0 there cancels in a sum of products: no pair selects its rows."""
         counts = self.group_counts
         dropped = other.missing_rows[self.valid[other.missing_rows]]
         if dropped.size:
-            counts = counts.copy()
-            np.subtract.at(counts, self.group_row[dropped], 1)
+            counts = counts - np.bincount(self.group_row[dropped], minlength=self.groups)
         average = _average_ranks(counts)
-        ranks = np.take(average, self.group_row[both])
+        ranks = np.take(np.append(average, 0.0), self.group_row)
         return ranks, float((counts * (average * average)).sum())
 
     def rank_sums(self, rows: np.ndarray) -> tuple[np.ndarray, float]:
@@ -258,11 +260,9 @@ def spearman(x: RankBase, y: RankBase, rows: np.ndarray) -> float | None:
 def spearman_pair(x: RankBase, y: RankBase, both: np.ndarray | None = None) -> float | None:
     """``spearman`` on the rows where both are present (``both``: their mask, if known), from
     ``RankBase.pair_ranks``."""
-    if both is None:
-        both = x.valid & y.valid
-    rx, sxx = x.pair_ranks(y, both)
-    ry, syy = y.pair_ranks(x, both)
-    n = rx.size
+    n = int(np.count_nonzero(x.valid & y.valid if both is None else both))
+    rx, sxx = x.pair_ranks(y)
+    ry, syy = y.pair_ranks(x)
     mean_square = n * ((n + 1) / 2.0) ** 2
     var_x, var_y = sxx - mean_square, syy - mean_square
     if var_x <= 1e-9 * sxx or var_y <= 1e-9 * syy:

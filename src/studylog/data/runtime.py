@@ -8,6 +8,8 @@ pandas objects.
 
 from __future__ import annotations
 
+import os
+import sys
 from typing import Any
 
 # glibc's mallopt parameters
@@ -76,3 +78,32 @@ def reuse_freed_memory() -> None:
         libc.mallopt(M_TRIM_THRESHOLD, 1 << 30)
     except (OSError, AttributeError):
         pass
+
+
+def one_blas_thread() -> bool:
+    """Ask the BLAS libraries of numpy and scipy (OpenBLAS) for one thread, where the user has not
+    chosen a number; True when it can still take effect.
+
+    OpenBLAS starts a thread per core when it loads, and they spin waiting for work after every call:
+    on two cores they took a tenth of the profile's CPU from the threads doing the work, for matrix
+    products of a few columns that one thread does as fast. The library reads the setting when it
+    loads, so this must come before numpy is imported (pyarrow imports it).
+    """
+    os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+    return "numpy" not in sys.modules
+
+
+def small_pages() -> None:
+    """Keep numpy from asking the kernel for huge pages for its arrays of 4 MB or more.
+
+    The profile makes and drops hundreds of column-sized arrays; where the kernel grants huge pages
+    only on request (``madvise``), each one is zeroed and often compacted for when faulted in, which
+    cost the profile more system time than the fewer faults saved (a tenth of a second, and most of
+    its variation from run to run).
+    """
+    import numpy as np
+
+    core = getattr(np, "_core", None) or getattr(np, "core", None)
+    switch = getattr(getattr(core, "multiarray", None), "_set_madvise_hugepage", None)
+    if switch is not None:
+        switch(False)
