@@ -201,3 +201,32 @@ def test_numbers_worked_out_while_the_file_is_read_change_nothing(tmp_path, monk
     early = profiling.profile_file(path, target="g")
     monkeypatch.setattr(profile.EarlyFloats, "add", lambda self, batches: None)
     assert json.dumps(early, sort_keys=True) == json.dumps(profiling.profile_file(path, target="g"), sort_keys=True)
+
+
+def test_leakage_eta_squared_on_the_pairs_complete_cases() -> None:
+    # eta^2 of a numeric input by a class target, both with missing cells, against scipy's one-way
+    # ANOVA on the rows where both are present (eta^2 = F df_b / (F df_b + df_w), by its definition)
+    from scipy import stats
+
+    rng = np.random.default_rng(7)
+    n = 3000
+    classes = rng.choice(["no", "yes", "maybe"], n)
+    shift = {"no": 0.0, "yes": 8.0, "maybe": 16.0}
+    values = np.array([shift[c] for c in classes]) + rng.normal(50.0, 1.0, n)
+    value_text = np.round(values, 3).astype(str).astype(object)
+    value_text[rng.choice(n, 90, replace=False)] = None
+    class_text = classes.astype(object)
+    class_text[rng.choice(n, 70, replace=False)] = None
+    table = pa.table({"dose": pa.array(value_text, pa.string()), "outcome": pa.array(class_text, pa.string())})
+    specs = {"dose": VariableSpec(name="dose", type="number"),
+             "outcome": VariableSpec(name="outcome", type="categorical")}
+    found = profile_table(table, specs, target="outcome")
+    both = (value_text != None) & (class_text != None)  # noqa: E711 - elementwise on an object array
+    kept = np.array([float(v) for v in value_text[both]])
+    groups = class_text[both]
+    result = stats.f_oneway(*(kept[groups == c] for c in ("no", "yes", "maybe")))
+    df_between, df_within = 2, int(both.sum()) - 3
+    expected = result.statistic * df_between / (result.statistic * df_between + df_within)
+    entry = next(item for item in found["leakage"] if item["variable"] == "dose")
+    assert entry["measure"] == "eta_squared"
+    assert entry["value"] == pytest.approx(expected, rel=1e-9)

@@ -140,6 +140,21 @@ def test_anova_matches_scipy_f_oneway() -> None:
     assert found["eta_squared"] == pytest.approx(between / ((values - grand) ** 2).sum(), rel=1e-10)
 
 
+def test_anova_of_sums_matches_scipy_f_oneway() -> None:
+    # the same test from each group's size and sum and the sum of squares (values centred first)
+    rng = np.random.default_rng(RNG_SEED)
+    groups = rng.integers(0, 4, 400)
+    values = rng.normal(loc=50.0, size=400) + groups * 0.3
+    centred = values - values.mean()
+    found = significance.anova_of_sums(np.bincount(groups, minlength=5),
+                                       np.bincount(groups, weights=centred, minlength=5), float(centred @ centred))
+    expected = stats.f_oneway(*(values[groups == g] for g in range(4)))
+    assert found["f"] == pytest.approx(expected.statistic, rel=1e-10)
+    assert found["p_unadjusted"] == pytest.approx(expected.pvalue, rel=1e-8)
+    assert (found["df_between"], found["df_within"]) == (3, 396)  # the empty fifth group is no group
+    assert significance.anova_of_sums(np.array([3, 4]), np.array([0.0, 0.0]), 0.0) is None  # constant
+
+
 def test_kruskal_wallis_with_ties_matches_scipy() -> None:
     rng = np.random.default_rng(RNG_SEED)
     groups = rng.integers(0, 3, 300)

@@ -367,6 +367,15 @@ class LevelColumn:
         """Where a level is given (the mask of codes >= 0; made once, read by every measure)."""
         return self.codes >= 0
 
+    @functools.cached_property
+    def slotted(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """The codes with a missing level's rows in a slot after the levels (``levels``), the rows of
+        each level, and the rows where the level is missing (made once, for sums by level over all
+        rows: see ``profile._leakage_measure``)."""
+        slot = np.where(self.present, self.codes, self.levels).astype(np.intp)
+        return slot, np.bincount(slot, minlength=self.levels + 1)[: self.levels], \
+            np.flatnonzero(~self.present)
+
 
 def associations(columns: Sequence[LevelColumn],
                  mapper: Callable[..., Iterable[Any]] = map) -> list[dict[str, Any]]:

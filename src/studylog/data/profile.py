@@ -283,10 +283,15 @@ def _leakage_measure(column: _Column, target: _Column, target_levels: pairs.Leve
     if column is target or column.spec.role in ("identifier", "excluded", "target") or target_levels is None:
         return None, None
     if column.base is not None:
-        rows = column.base.valid & target_levels.present
-        if np.count_nonzero(rows) >= pairs.MIN_PAIR_CASES:
-            groups, k, sizes = pairs.compact_groups_counted(target_levels.codes[rows], target_levels.levels)
-            result = significance.anova(groups, column.base.centred[rows], k, sizes)
+        # sums by class over all rows: a missing value is 0 in ``centred``, a missing class has a slot
+        # of its own; the sizes and the sum of squares less the few rows where either is missing
+        base, k = column.base, target_levels.levels
+        slot, sizes, target_missing = target_levels.slotted
+        sizes = sizes - np.bincount(slot[base.missing_rows], minlength=k + 1)[:k]
+        if sizes.sum() >= pairs.MIN_PAIR_CASES:
+            sums = np.bincount(slot, weights=base.centred, minlength=k + 1)[:k]
+            outside = base.centred[target_missing]
+            result = significance.anova_of_sums(sizes, sums, base.total_squares - float(outside @ outside))
             return "eta_squared", (result["eta_squared"] if result else None)
     elif column.levels is not None:
         found = associated.get((column.name, target.name)) if target_levels is target.levels else None

@@ -119,17 +119,36 @@ def dagostino_pearson_from_moments(count: int, b1: float, b2: float) -> tuple[fl
 def anova(groups: np.ndarray, values: np.ndarray, k: int, sizes: np.ndarray | None = None) -> dict[str, Any] | None:
     """One-way ANOVA of ``values`` by integer group ``groups`` (0..k-1): F, p, eta^2. ``sizes``: the
     rows in each group, when the caller has counted them."""
-    n = values.size
     sizes = (np.bincount(groups, minlength=k) if sizes is None else sizes).astype(float)
+    sums = np.bincount(groups, weights=values, minlength=k)
+    mean = values.mean() if values.size else 0.0
+    return _anova_table(sizes, sums, float(mean), float(((values - mean) ** 2).sum()), values.size)
+
+
+def anova_of_sums(sizes: np.ndarray, sums: np.ndarray, squares: float) -> dict[str, Any] | None:
+    """``anova`` from each group's rows and sum of values and the sum of the squared values of all of
+    them, for values centred near their mean (then squares - n mean^2 loses no precision)."""
+    sizes = sizes.astype(float)
+    n = int(sizes.sum())
+    if n == 0:
+        return None
+    mean = float(sums.sum()) / n
+    ss_total = squares - n * mean * mean
+    # a variable constant on these rows leaves only rounding error in its sum of squares
+    if ss_total <= 1e-12 * max(squares, 1e-300):
+        return None
+    return _anova_table(sizes, sums, mean, ss_total, n)
+
+
+def _anova_table(sizes: np.ndarray, sums: np.ndarray, mean: float, ss_total: float,
+                 n: int) -> dict[str, Any] | None:
+    k = sizes.size
     used = sizes > 0
     groups_used = int(used.sum())
     if groups_used < 2 or n - groups_used < 1:
         return None
-    sums = np.bincount(groups, weights=values, minlength=k)
-    mean = values.mean()
     group_means = np.divide(sums, sizes, out=np.zeros(k), where=used)
     ss_between = float((sizes * (group_means - mean) ** 2).sum())
-    ss_total = float(((values - mean) ** 2).sum())
     ss_within = ss_total - ss_between
     df_between, df_within = groups_used - 1, n - groups_used
     if ss_total == 0:
