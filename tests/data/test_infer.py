@@ -9,6 +9,7 @@ import pandas as pd
 import pyarrow as pa
 import pytest
 
+from studylog.data import key_search
 from studylog.data.infer import infer_column, infer_table, strict_parse
 from studylog.data.read import read_table
 
@@ -245,7 +246,7 @@ def test_inference_is_vectorised_enough(rows: int) -> None:
 def test_a_pair_unique_only_in_the_first_rows_is_no_key(monkeypatch: pytest.MonkeyPatch) -> None:
     from studylog.data import infer
 
-    monkeypatch.setattr(infer, "PAIR_PREFIX_ROWS", 3)
+    monkeypatch.setattr(key_search, "PAIR_PREFIX_ROWS", 3)
     table = pa.table({
         "person": ["p1", "p1", "p2", "p2", "p3", "p1"],
         "visit": ["1", "2", "1", "2", "1", "1"],  # (p1, 1) comes back in the last row

@@ -225,7 +225,9 @@ def infer_table(table: pa.Table, *, key: list[str] | None = None) -> TablePropos
         proposal.key = list(key)
         proposal.key_evidence = "given"
     else:
-        found = find_key(table, columns)
+        from studylog.data import key_search
+
+        found = key_search.find_key(table, columns)
         if found is not None:
             proposal.key, proposal.key_evidence = found
     return proposal
@@ -281,7 +283,7 @@ def _propose_type(proposal: Proposal, rest: _Values) -> None:
     evidence.share_parsed = 1.0
     evidence.examples = rest.most_frequent()
     unique = evidence.distinct == rest.total
-    if unique and _looks_like_codes(rest) and (_id_name(proposal.name) or rest.total >= 10):
+    if unique and _looks_like_codes(rest) and (id_like_name(proposal.name) or rest.total >= 10):
         proposal.type = "identifier"
         evidence.notes.append("every value is distinct")
     elif evidence.distinct <= MAX_LEVELS and evidence.distinct <= max(1, rest.total // 2):
@@ -348,7 +350,7 @@ def _as_integer(proposal: Proposal, rest: _Values) -> bool:
     low, high = pc.min_max(numbers).values()
     proposal.minimum, proposal.maximum = str(low.as_py()), str(high.as_py())
     distinct = len(good.values)
-    if distinct == good.total and good.total >= 2 and _id_name(proposal.name):
+    if distinct == good.total and good.total >= 2 and id_like_name(proposal.name):
         proposal.type = "identifier"
         proposal.evidence.notes.append("every value is distinct and the name reads like an identifier")
     elif distinct >= 3 and low.as_py() in RATING_LOW and high.as_py() in RATING_HIGH:
@@ -543,7 +545,7 @@ def _codes(found: _Values, why: str) -> list[dict[str, Any]]:
 # -------------------------------------------------------------------------------------- names and keys
 
 
-def _id_name(name: str) -> bool:
+def id_like_name(name: str) -> bool:
     return bool(ID_NAME.search(name.strip()))
 
 
@@ -577,46 +579,6 @@ def _emails(rest: _Values) -> int:
     if not pc.any(pc.match_substring(rest.values, "@")).as_py():
         return 0
     return rest.weight(rest.matches(EMAIL_PATTERN))
-
-
-KEY_TYPES = ("identifier", "integer", "categorical", "ordinal", "date", "datetime", "boolean")
-MAX_KEY_COLUMNS = 30
-PAIR_PREFIX_ROWS = 20_000
-
-
-def find_key(table: pa.Table, proposals: list[Proposal]) -> tuple[list[str], str] | None:
-    """A column, else a pair of columns, that is complete and unique; identifiers and id-like names first."""
-    import pyarrow.compute as pc
-
-    rows = table.num_rows
-    if rows < 2:
-        return None
-    complete = [p for p in proposals if p.evidence.empty == 0 and not p.missing_codes and p.type in KEY_TYPES]
-
-    position = {id(p): i for i, p in enumerate(proposals)}
-
-    def preference(p: Proposal) -> tuple[int, int]:
-        return (0 if p.type == "identifier" else 1 if _id_name(p.name) else 2, position[id(p)])
-
-    complete.sort(key=preference)
-    distinct = {p.name: pc.count_distinct(table.column(p.name)).as_py() for p in complete}
-    for p in complete:
-        if distinct[p.name] == rows:
-            return [p.name], f"{p.name} is complete and unique over {rows} rows"
-    pairs = [
-        (a, b) for i, a in enumerate(complete[:MAX_KEY_COLUMNS]) for b in complete[i + 1 : MAX_KEY_COLUMNS]
-        if distinct[a.name] > 1 and distinct[b.name] > 1 and distinct[a.name] * distinct[b.name] >= rows
-    ]
-    prefix = table.slice(0, PAIR_PREFIX_ROWS)
-    for a, b in pairs:
-        # a pair repeated within the first rows is no key: most pairs are rejected without a full pass
-        if _unique_rows(prefix, [a.name, b.name]) and _unique_rows(table, [a.name, b.name]):
-            return [a.name, b.name], f"{a.name} with {b.name} is complete and unique over {rows} rows"
-    return None
-
-
-def _unique_rows(table: pa.Table, names: list[str]) -> bool:
-    return table.select(names).group_by(names).aggregate([]).num_rows == table.num_rows
 
 
 # ------------------------------------------------------------------------------------------- formatting
