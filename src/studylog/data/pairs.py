@@ -247,14 +247,9 @@ def pearson_matrix(bases: Sequence[RankBase]) -> tuple[np.ndarray, np.ndarray]:
 def spearman(x: RankBase, y: RankBase, rows: np.ndarray) -> float | None:
     """Spearman's rho on ``rows`` (the pair's complete cases), ranked on those rows: Pearson's r of the
     ranks, whose mean is (n + 1) / 2 whatever the ties."""
-    n = rows.size
     rx, sxx = x.rank_sums(rows)
     ry, syy = y.rank_sums(rows)
-    mean_square = n * ((n + 1) / 2.0) ** 2
-    var_x, var_y = sxx - mean_square, syy - mean_square
-    if var_x <= 1e-9 * sxx or var_y <= 1e-9 * syy:
-        return None
-    return max(-1.0, min(1.0, (_dot(rx, ry) - mean_square) / math.sqrt(var_x * var_y)))
+    return _rank_correlation(rx, ry, sxx, syy, rows.size)
 
 
 def spearman_pair(x: RankBase, y: RankBase, both: np.ndarray | None = None) -> float | None:
@@ -263,6 +258,11 @@ def spearman_pair(x: RankBase, y: RankBase, both: np.ndarray | None = None) -> f
     n = int(np.count_nonzero(x.valid & y.valid if both is None else both))
     rx, sxx = x.pair_ranks(y)
     ry, syy = y.pair_ranks(x)
+    return _rank_correlation(rx, ry, sxx, syy, n)
+
+
+def _rank_correlation(rx: np.ndarray, ry: np.ndarray, sxx: float, syy: float, n: int) -> float | None:
+    """Pearson's r of n pairs of ranks from their sums of squares (None for a variable constant there)."""
     mean_square = n * ((n + 1) / 2.0) ** 2
     var_x, var_y = sxx - mean_square, syy - mean_square
     if var_x <= 1e-9 * sxx or var_y <= 1e-9 * syy:
