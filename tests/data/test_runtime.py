@@ -74,3 +74,22 @@ def test_the_commands_ask_for_one_blas_thread_before_numpy_loads(tmp_path: Path,
     done = _python(WATCHED, *args, env=env, cwd=tmp_path)
     last = done.stderr.strip().splitlines()[-1]
     assert last == "exit=0 answers=[True]", done.stderr[-2000:]
+
+
+def test_prefer_jemalloc_makes_it_arrows_pool_where_pyarrow_has_it(tmp_path: Path) -> None:
+    script = """
+import pyarrow as pa
+from studylog.data import runtime
+try:
+    pa.jemalloc_memory_pool()
+    built_with = True
+except (NotImplementedError, pa.ArrowException):
+    built_with = False
+before = pa.default_memory_pool().backend_name
+runtime.prefer_jemalloc(decay_ms=runtime.CHECK_DECAY_MS)
+print(built_with, before, pa.default_memory_pool().backend_name)
+"""
+    done = _python(script, env=_env(tmp_path), cwd=tmp_path)
+    assert done.returncode == 0, done.stderr
+    built_with, before, after = done.stdout.split()
+    assert after == ("jemalloc" if built_with == "True" else before)

@@ -50,7 +50,7 @@ def check(
     from studylog import drops
     from studylog.errors import ChecksFailed, UsageError
 
-    runtime.prefer_jemalloc()
+    runtime.prefer_jemalloc(decay_ms=runtime.CHECK_DECAY_MS)
     if fail_on not in drops.FAIL_ON:
         raise UsageError(f"--fail-on must be one of {', '.join(drops.FAIL_ON)}, not '{fail_on}'")
     unit = reading() if no_record else writing()
