@@ -165,7 +165,8 @@ def _levels(text: str) -> list[dict[str, object]]:
 
 
 def measure(command: list[str], env: dict[str, str]) -> tuple[float, float, float]:
-    """Wall seconds, peak RSS (MB) and CPU seconds (user + system, all threads) of one child process."""
+    """Wall seconds, peak RSS (MiB: ru_maxrss is in KiB) and CPU seconds (user + system, all threads) of
+    one child process."""
     start = time.perf_counter()
     child = subprocess.Popen(command, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, env=env)
     _, status, usage = os.wait4(child.pid, 0)
@@ -207,7 +208,7 @@ def report(label: str, rows: int, path: Path, results: dict[str, float]) -> None
     print(f"{label}: {rows:,} rows, {size:,.0f} MB")
     for label, key in (("pyarrow.csv.read_csv", "read_csv"), ("studylog check", "check")):
         print(f"  {label:21}: {results[key + '_s']:7.2f} s wall  {results[key + '_cpu']:7.2f} s cpu  "
-              f"{results[key + '_mb']:8.0f} MB peak")
+              f"{results[key + '_mb']:8.0f} MiB peak ({results[key + '_mb'] * 2**20 / 1e6:,.0f} MB)")
     print(f"  ratios (check / read): wall {results['time_ratio']:.2f}   cpu {results['cpu_ratio']:.2f}   "
           f"memory {results['memory_ratio']:.2f}")
     print(f"  (load average {os.getloadavg()[0]:.1f} on {os.cpu_count()} CPUs: wall times include waiting "
