@@ -12,6 +12,8 @@ from pathlib import Path
 
 import pytest
 
+import in_process
+
 # pydantic: typer from 0.29 on coerces every option through it (a tenth of a second); pyproject keeps
 # typer below that
 HEAVY = ("pandas", "pyarrow", "numpy", "scipy", "pydantic")
@@ -73,18 +75,10 @@ def real_store(tmp_path_factory: pytest.TempPathFactory) -> tuple[dict[str, str]
     return env, folder
 
 
-IN_PROCESS = """
-import runpy, sys
-sys.argv = ["studylog", *sys.argv[1:]]
-try:
-    runpy.run_module("studylog", run_name="__main__", alter_sys=True)
-except SystemExit as exc:
-    code = exc.code
-else:
-    code = 0
+IN_PROCESS = in_process.script(after="""
 heavy = sorted({m.split(".")[0] for m in sys.modules} & {"pandas", "pyarrow", "numpy", "scipy"})
 sys.stderr.write(f"\\nexit={code} heavy={','.join(heavy)} journal={'studylog.journal' in sys.modules}\\n")
-"""
+""")
 
 
 @pytest.mark.parametrize("args", COMMANDS, ids=[" ".join(a[:2]) for a in COMMANDS])

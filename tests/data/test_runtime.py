@@ -10,6 +10,10 @@ from pathlib import Path
 
 import pytest
 
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+
+import in_process  # noqa: E402
+
 FRESH = """
 import os, sys
 from studylog.data import runtime
@@ -20,21 +24,14 @@ print(before, after, os.environ.get("OPENBLAS_NUM_THREADS"))
 """
 
 # the command line with one_blas_thread watched: what it returned when the command called it
-WATCHED = """
-import runpy, sys
+WATCHED = in_process.script(before="""
 from studylog.data import runtime
 answers = []
 original = runtime.one_blas_thread
 runtime.one_blas_thread = lambda: answers.append(original()) or answers[-1]
-sys.argv = ["studylog", *sys.argv[1:]]
-try:
-    runpy.run_module("studylog", run_name="__main__", alter_sys=True)
-except SystemExit as exc:
-    code = exc.code
-else:
-    code = 0
+""", after="""
 sys.stderr.write(f"\\nexit={code} answers={answers}\\n")
-"""
+""")
 
 
 def _python(script: str, *args: str, env: dict[str, str], cwd: Path) -> subprocess.CompletedProcess[str]:

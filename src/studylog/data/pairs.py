@@ -270,14 +270,9 @@ def _rank_correlation(rx: np.ndarray, ry: np.ndarray, sxx: float, syy: float, n:
     return max(-1.0, min(1.0, (_dot(rx, ry) - mean_square) / math.sqrt(var_x * var_y)))
 
 
-def compact_groups(codes: np.ndarray, levels: int) -> tuple[np.ndarray, int]:
-    """Level indices renumbered 0..k-1 over the levels that occur (no sort of the rows)."""
-    groups, k, _sizes = compact_groups_counted(codes, levels)
-    return groups, k
-
-
 def compact_groups_counted(codes: np.ndarray, levels: int) -> tuple[np.ndarray, int, np.ndarray]:
-    """``compact_groups``, and the rows in each group."""
+    """Level indices renumbered 0..k-1 over the levels that occur (no sort of the rows), k, and the rows
+    in each group."""
     counts = np.bincount(codes, minlength=levels)
     seen = np.flatnonzero(counts)
     if seen.size == levels:
@@ -372,7 +367,7 @@ class LevelColumn:
         """The codes with a missing level's rows in a slot after the levels (``levels``), the rows of
         each level, and the rows where the level is missing (made once, for sums by level over all
         rows: see ``profile._leakage_measure``)."""
-        slot = np.where(self.present, self.codes, self.levels).astype(np.intp)
+        slot = np.where(self.present, self.codes, self.levels).astype(np.intp, copy=False)
         return slot, np.bincount(slot, minlength=self.levels + 1)[: self.levels], \
             np.flatnonzero(~self.present)
 
