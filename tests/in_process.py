@@ -3,11 +3,14 @@ tests that look at what a run loaded or called (``sys.argv[1:]`` are the command
 
 from __future__ import annotations
 
+# run() is what the entry point calls before it leaves (without the interpreter's teardown, which would
+# not let the script report)
 RUN_THE_COMMAND_LINE = """
-import runpy, sys
+import sys
 sys.argv = ["studylog", *sys.argv[1:]]
+from studylog.cli.app import run
 try:
-    runpy.run_module("studylog", run_name="__main__", alter_sys=True)
+    run()
 except SystemExit as exc:
     code = exc.code
 else:

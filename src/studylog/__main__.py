@@ -1,3 +1,3 @@
-from studylog.cli.app import run
+from studylog.cli.app import entry
 
-run()
+entry()

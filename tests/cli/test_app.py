@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import os
 import subprocess
 import sys
@@ -86,3 +87,29 @@ def test_the_collector_rests_while_a_command_starts_and_runs_with_the_command(st
         "building False", "command True True", "exit 0", "after True True"]
     # a run that stops before its command (a usage error) leaves the collector as it found it
     assert _probe("log", cwd=tmp_path) == ["building False", "exit 2", "after True False"]
+
+
+def test_the_entry_point_leaves_with_its_output_whole_its_exit_code_and_the_store_closed(
+        study: Path, tmp_path: Path) -> None:
+    # a profile's JSON larger than a pipe's buffer (64 KiB on Linux) arrives whole through the pipe
+    # although the process leaves without the interpreter's teardown
+    header = ",".join(f"x{j}" for j in range(60))
+    rows = "\n".join(",".join(str((i * (j + 3)) % 101) for j in range(60)) for i in range(300))
+    data = tmp_path / "wide.csv"
+    data.write_text(header + "\n" + rows + "\n", encoding="utf-8")
+    done = _studylog("profile", str(data), "--json", cwd=tmp_path)
+    assert done.returncode == 0, done.stderr
+    assert len(done.stdout) > 65_536
+    assert json.loads(done.stdout)["rows"] == 300
+    # a write leaves no SQLite log beside the store: its connection was closed before leaving (this
+    # process's own connections, from making the study, closed first: the log goes with the last one)
+    from studylog.store.session import dispose_engines
+
+    dispose_engines()
+    done = _studylog("log", "chose the median", "--kind", "other", cwd=tmp_path)
+    assert done.returncode == 0, done.stderr
+    store = study / "studylog.db" if study.is_dir() else study
+    assert store.exists() and not Path(f"{store}-wal").exists()
+    # a refused command keeps its exit code and its one line
+    done = _studylog("profile", str(tmp_path / "missing.csv"), cwd=tmp_path)
+    assert done.returncode == 2 and done.stderr.startswith("error:") and len(done.stderr.splitlines()) == 1
