@@ -27,6 +27,7 @@ from typing import Any
 import numpy as np
 
 from studylog.data import significance
+from studylog.data.ordered import CountedValues, OrderedValues, SortedValues
 
 MIN_PAIR_CASES = 10
 MAX_NUMERIC_COLUMNS = 50
@@ -43,11 +44,12 @@ def _dot(a: np.ndarray, b: np.ndarray) -> float:
 
 @dataclass
 class RankBase:
-    """One sort of a numeric column: its values sorted, each row's tie group in value order, and the
-    values shifted by their mean with 0 where missing (for sums over any pair's complete cases)."""
+    """One sort of a numeric column: its values in order (sorted, or counted: ``data.ordered``), each
+    row's tie group in value order, and the values shifted by their mean with 0 where missing (for
+    sums over any pair's complete cases)."""
 
     valid: np.ndarray  # bool
-    sorted_values: np.ndarray
+    ordered: OrderedValues
     group_row: np.ndarray  # tie-group number of each row, as intp (``groups`` where missing)
     groups: int
     group_counts: np.ndarray  # rows in each tie group
@@ -57,8 +59,12 @@ class RankBase:
     total: float = 0.0  # sum of centred values
     total_squares: float = 0.0
 
-    def finish(self) -> RankBase:
-        self.centre = float(self.sorted_values.mean()) if self.sorted_values.size else 0.0
+    @property
+    def sorted_values(self) -> np.ndarray:
+        return self.ordered.materialized()
+
+    def finish(self, present: np.ndarray) -> RankBase:
+        self.centre = float(present.mean()) if present.size else 0.0
         self.centred -= self.centre
         invalid = ~self.valid
         self.centred[invalid] = 0.0
@@ -83,10 +89,10 @@ class RankBase:
             offsets = (present - low).astype(np.int64)
             counts = np.bincount(offsets)
             seen = np.flatnonzero(counts)
-            sorted_values = np.repeat(low + seen.astype(np.float64), counts[seen])
+            ordered = CountedValues(low + seen.astype(np.float64), counts[seen])
             group_row = np.zeros(values.size, dtype=np.intp)
             group_row[valid] = offsets  # by the mask: twice as fast as by the rows' numbers
-            return cls(valid, sorted_values, group_row, int(counts.size), counts, centred=values).finish()
+            return cls(valid, ordered, group_row, int(counts.size), counts, centred=values).finish(present)
         scale = None if integer else _decimal_scale(present)
         if scale is not None:
             counted = _counted_decimals(cls, values, valid, present, scale)
@@ -103,7 +109,7 @@ class RankBase:
         group_row[rows[order]] = group_sorted
         groups = int(group_sorted[-1]) + 1 if group_sorted.size else 0
         counts = np.diff(np.append(np.flatnonzero(starts), sorted_values.size))
-        return cls(valid, sorted_values, group_row, groups, counts, centred=values).finish()
+        return cls(valid, SortedValues(sorted_values), group_row, groups, counts, centred=values).finish(present)
 
     def ranks(self, rows: np.ndarray) -> tuple[np.ndarray, float]:
         """Average ranks (1..len(rows)) of the values at ``rows`` among those rows only, and
@@ -176,10 +182,10 @@ def _counted_decimals(cls: type[RankBase], values: np.ndarray, valid: np.ndarray
     # tie groups numbered in value order over the values that occur, as sorting numbers them
     dense = np.cumsum(seen, dtype=np.intp)
     dense -= 1
-    sorted_values = np.repeat((low + np.flatnonzero(seen).astype(np.float64)) / scale, counts)
+    ordered = CountedValues((low + np.flatnonzero(seen).astype(np.float64)) / scale, counts)
     group_row = np.zeros(values.size, dtype=np.intp)
     group_row[valid] = dense[offsets]
-    return cls(valid, sorted_values, group_row, int(counts.size), counts, centred=values).finish()
+    return cls(valid, ordered, group_row, int(counts.size), counts, centred=values).finish(present)
 
 
 def _average_ranks(counts: np.ndarray) -> np.ndarray:

@@ -21,6 +21,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from studylog.data import cells, pairs, significance, suggest, univariate
+from studylog.data.ordered import OrderedValues
 from studylog.data.spec import LEVEL_TYPES, NUMERIC_TYPES, VariableSpec
 from studylog.errors import UsageError
 
@@ -188,10 +189,10 @@ def _profile_column(name: str, strings: pa.ChunkedArray, spec: VariableSpec,
         # the tie groups that occur are the runs of equal sorted values (counting whole numbers
         # makes empty groups too)
         counts = column.base.group_counts
-        entry.update(univariate.numeric_summary(column.base.sorted_values, kind == "integer", counts[counts > 0]))
+        entry.update(univariate.numeric_summary(column.base.ordered, kind == "integer", counts[counts > 0]))
         entry["invalid"] = int(np.count_nonzero(invalid))
         entry["invalid_examples"] = cells.invalid_examples(strings, invalid, masked)
-        entry["impossible"] = _impossible(column.base.sorted_values, spec)
+        entry["impossible"] = _impossible(column.base.ordered, spec)
         if masked:
             for key in ("min", "max"):
                 entry[key] = None
@@ -223,13 +224,13 @@ def _profile_column(name: str, strings: pa.ChunkedArray, spec: VariableSpec,
     return column
 
 
-def _impossible(sorted_values: np.ndarray, spec: VariableSpec) -> dict[str, int] | None:
+def _impossible(ordered: OrderedValues, spec: VariableSpec) -> dict[str, int] | None:
     """Values outside the declared possible range (minimum, maximum)."""
     low, high = _number(spec.minimum), _number(spec.maximum)
     if low is None and high is None:
         return None
-    below = int(np.searchsorted(sorted_values, low, side="left")) if low is not None else 0
-    above = sorted_values.size - int(np.searchsorted(sorted_values, high, side="right")) if high is not None else 0
+    below = int(ordered.below(low, "left")) if low is not None else 0
+    above = ordered.n - int(ordered.below(high, "right")) if high is not None else 0
     return {"below_minimum": below, "above_maximum": above}
 
 

@@ -31,6 +31,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from studylog.data.cells import Encoded, as_bool, to_numpy
+from studylog.data.ordered import CountedValues, OrderedValues, SortedValues
 
 SHAPIRO_MAX_N = 5000
 MODIFIED_Z_CONSTANT = 0.6745
@@ -53,13 +54,19 @@ MAD_ZERO_NOTE = "MAD is 0 (half the values or more equal the median): the modifi
 # quantiles and summaries on sorted values
 
 
-def quantile_type7(sorted_values: np.ndarray, p: float | np.ndarray) -> float | np.ndarray:
+def _ordered(values: np.ndarray | OrderedValues) -> OrderedValues:
+    return values if isinstance(values, (SortedValues, CountedValues)) else SortedValues(values)
+
+
+def quantile_type7(sorted_values: np.ndarray | OrderedValues, p: float | np.ndarray) -> float | np.ndarray:
     """Hyndman & Fan type 7: linear interpolation at 0-based position (n - 1) p (numpy's default)."""
-    n = sorted_values.size
+    ordered = _ordered(sorted_values)
+    n = ordered.n
     h = (n - 1) * np.asarray(p, dtype=float)
     lo = np.floor(h).astype(np.int64)
     hi = np.minimum(lo + 1, n - 1)
-    result = sorted_values[lo] + (h - lo) * (sorted_values[hi] - sorted_values[lo])
+    low, high = ordered.at(lo), ordered.at(hi)
+    result = low + (h - lo) * (high - low)
     return float(result) if np.ndim(result) == 0 else result
 
 
@@ -76,28 +83,27 @@ def quantile_type6(sorted_values: np.ndarray, p: float) -> float:
     return float(sorted_values[k - 1] + d * (sorted_values[k] - sorted_values[k - 1]))
 
 
-def tukey_hinges(sorted_values: np.ndarray) -> tuple[float, float]:
+def tukey_hinges(sorted_values: np.ndarray | OrderedValues) -> tuple[float, float]:
     """Tukey's (1977) hinges: depth of the median (n + 1) / 2, hinge depth (floor(that) + 1) / 2."""
-    n = sorted_values.size
+    ordered = _ordered(sorted_values)
+    n = ordered.n
     depth = (math.floor((n + 1) / 2) + 1) / 2
     a, b = math.floor(depth) - 1, math.ceil(depth) - 1
-    lower = (sorted_values[a] + sorted_values[b]) / 2
-    upper = (sorted_values[n - 1 - a] + sorted_values[n - 1 - b]) / 2
-    return float(lower), float(upper)
+    low_a, low_b, high_a, high_b = ordered.at(np.array([a, b, n - 1 - a, n - 1 - b]))
+    return float((low_a + low_b) / 2), float((high_a + high_b) / 2)
 
 
-def tukey_fences(sorted_values: np.ndarray) -> dict[str, Any]:
+def tukey_fences(sorted_values: np.ndarray | OrderedValues) -> dict[str, Any]:
     """Hinges, inner and outer fences, and the counts beyond them (strictly outside)."""
-    lower, upper = tukey_hinges(sorted_values)
+    ordered = _ordered(sorted_values)
+    lower, upper = tukey_hinges(ordered)
     spread = upper - lower
     inner = (lower - TUKEY_INNER * spread, upper + TUKEY_INNER * spread)
     outer = (lower - TUKEY_OUTER * spread, upper + TUKEY_OUTER * spread)
-    n = sorted_values.size
+    n = ordered.n
 
     def beyond(low: float, high: float) -> int:
-        below = int(np.searchsorted(sorted_values, low, side="left"))
-        above = n - int(np.searchsorted(sorted_values, high, side="right"))
-        return below + above
+        return int(ordered.below(low, "left")) + n - int(ordered.below(high, "right"))
 
     return {
         "hinges": [lower, upper],
@@ -119,70 +125,41 @@ def modified_z(values: np.ndarray, median: float) -> tuple[float, int | None]:
     return mad, int(np.count_nonzero(deviations > limit))
 
 
-def modified_z_sorted(sorted_values: np.ndarray, median: float) -> tuple[float, int | None]:
-    """``modified_z`` of values in ascending order, without selecting among all the deviations: those
-    below the median, read backwards, and those from it up are two ascending runs (|x - m| is m - x
-    exactly below m), so their median is found by bisection and the counts by search."""
-    split = int(np.searchsorted(sorted_values, median, side="left"))
-    below = median - sorted_values[split - 1::-1] if split else sorted_values[:0]
-    above = sorted_values[split:] - median
-    n = sorted_values.size
-    middle = _kth_of_two(below, above, (n - 1) // 2)
-    mad = middle if n % 2 else float((middle + _kth_of_two(below, above, n // 2)) / 2)
-    if mad == 0.0:
-        return mad, None
-    limit = MODIFIED_Z_LIMIT * mad / MODIFIED_Z_CONSTANT
-    beyond = below.size - int(np.searchsorted(below, limit, side="right"))
-    beyond += above.size - int(np.searchsorted(above, limit, side="right"))
-    return mad, beyond
+def modified_z_sorted(sorted_values: np.ndarray | OrderedValues, median: float) -> tuple[float, int | None]:
+    """``modified_z`` of values in ascending order (or counted), without selecting among all the
+    deviations (see ``SortedValues.absolute_deviations``)."""
+    return _ordered(sorted_values).absolute_deviations(median, MODIFIED_Z_LIMIT, MODIFIED_Z_CONSTANT)
 
 
-def _kth_of_two(a: np.ndarray, b: np.ndarray, k: int) -> float:
-    """The k-th smallest (from 0) of two ascending arrays together."""
-    lo, hi = max(0, k + 1 - b.size), min(k + 1, a.size)
-    while True:
-        i = (lo + hi) // 2  # taken from a; the rest, j, from b
-        j = k + 1 - i
-        if i < a.size and j > 0 and b[j - 1] > a[i]:
-            lo = i + 1
-        elif i > 0 and j < b.size and a[i - 1] > b[j]:
-            hi = i - 1
-        else:
-            return float(max(a[i - 1] if i else -math.inf, b[j - 1] if j else -math.inf))
-
-
-def moments(values: np.ndarray) -> dict[str, float | None]:
+def moments(values: np.ndarray | OrderedValues) -> dict[str, float | None]:
     """Mean, sample sd (n - 1), skewness G1 and excess kurtosis G2 (both adjusted, as scipy bias=False)."""
-    n = values.size
+    ordered = _ordered(values)
+    n = ordered.n
     out: dict[str, float | None] = {"mean": None, "sd": None, "skewness": None, "kurtosis": None}
     if n == 0:
         return out
-    mean = float(values.mean())
+    mean, m2, m3, m4 = ordered.central_sums()
     out["mean"] = mean
     if n < 2:
         return out
-    d = values - mean
-    d2 = d * d
-    m2 = float(d2.mean())
     out["sd"] = math.sqrt(m2 * n / (n - 1))
     if m2 == 0.0:
         return out
     if n >= 3:
-        m3 = float((d2 * d).mean())
         g1 = m3 / m2**1.5
         out["skewness"] = g1 * math.sqrt(n * (n - 1)) / (n - 2)
     if n >= 4:
-        m4 = float((d2 * d2).mean())
         g2 = m4 / (m2 * m2) - 3.0
         out["kurtosis"] = ((n + 1) * g2 + 6.0) * (n - 1) / ((n - 2) * (n - 3))
     return out
 
 
-def histogram(sorted_values: np.ndarray, integer: bool, iqr: float) -> dict[str, list[float]]:
+def histogram(sorted_values: np.ndarray | OrderedValues, integer: bool, iqr: float) -> dict[str, list[float]]:
     """Equal-width bins: one per value for integers spanning <= 50 values, else max(Sturges, Freedman-
     Diaconis) bins capped at 50; a value on an inner edge falls in the bin to its right."""
-    n = sorted_values.size
-    low, high = float(sorted_values[0]), float(sorted_values[-1])
+    ordered = _ordered(sorted_values)
+    n = ordered.n
+    low, high = (float(v) for v in ordered.at(np.array([0, n - 1])))
     if low == high:
         return {"edges": [low, high], "counts": [n]}
     if integer and high - low < HISTOGRAM_MAX_BINS:
@@ -193,17 +170,14 @@ def histogram(sorted_values: np.ndarray, integer: bool, iqr: float) -> dict[str,
             width = 2.0 * iqr * n ** (-1 / 3)
             bins = max(bins, math.ceil((high - low) / width))
         edges = np.linspace(low, high, min(bins, HISTOGRAM_MAX_BINS) + 1)
-    cuts = np.searchsorted(sorted_values, edges[1:-1], side="left")
+    cuts = ordered.below(edges[1:-1], "left")
     bounds = np.concatenate(([0], cuts, [n]))
     return {"edges": edges.tolist(), "counts": np.diff(bounds).tolist()}
 
 
 def run_lengths(sorted_values: np.ndarray) -> np.ndarray:
     """How often each distinct value occurs, from sorted values."""
-    if sorted_values.size == 0:
-        return np.zeros(0, dtype=np.int64)
-    starts = np.flatnonzero(sorted_values[1:] != sorted_values[:-1]) + 1
-    return np.diff(np.concatenate(([0], starts, [sorted_values.size])))
+    return SortedValues(sorted_values).run_lengths()
 
 
 def near_zero_variance(counts: np.ndarray, present: int) -> dict[str, Any]:
@@ -231,17 +205,19 @@ def near_zero_variance(counts: np.ndarray, present: int) -> dict[str, Any]:
     return out
 
 
-def normality(values: np.ndarray, skewness: float | None, kurtosis: float | None) -> dict[str, Any] | None:
+def normality(values: np.ndarray | OrderedValues, skewness: float | None,
+              kurtosis: float | None) -> dict[str, Any] | None:
     """Shapiro-Wilk for 3 <= n <= 5000, D'Agostino-Pearson above; None below 3 or for constant data."""
     from studylog.data.significance import dagostino_pearson_from_moments
 
-    n = values.size
+    n = values.n if isinstance(values, (SortedValues, CountedValues)) else values.size
     if n < 3 or skewness is None:
         return None
     if n <= SHAPIRO_MAX_N:
         from scipy import stats
 
-        statistic, p_value = stats.shapiro(values)
+        plain = values.materialized() if isinstance(values, (SortedValues, CountedValues)) else values
+        statistic, p_value = stats.shapiro(plain)
         test = "shapiro-wilk"
     else:
         # the biased moments back from G1 and G2 (exact algebra, no second pass over the values)
@@ -262,10 +238,13 @@ def normality(values: np.ndarray, skewness: float | None, kurtosis: float | None
 # summaries
 
 
-def numeric_summary(sorted_values: np.ndarray, integer: bool, counts: np.ndarray | None = None) -> dict[str, Any]:
-    """Five-number summary, moments, fences, modified z-score, histogram, near-zero variance, normality.
-    ``counts``: ``run_lengths(sorted_values)`` when the caller has them."""
-    n = sorted_values.size
+def numeric_summary(sorted_values: np.ndarray | OrderedValues, integer: bool,
+                    counts: np.ndarray | None = None) -> dict[str, Any]:
+    """Five-number summary, moments, fences, modified z-score, histogram, near-zero variance, normality,
+    of values in ascending order or counted (``data.ordered``). ``counts``: ``run_lengths`` of sorted
+    values when the caller has them."""
+    ordered = _ordered(sorted_values)
+    n = ordered.n
     out: dict[str, Any] = {
         "distinct": 0, "min": None, "q1": None, "median": None, "q3": None, "max": None,
         "mean": None, "sd": None, "skewness": None, "kurtosis": None, "deciles": None, "mad": None,
@@ -275,25 +254,25 @@ def numeric_summary(sorted_values: np.ndarray, integer: bool, counts: np.ndarray
     }
     if n == 0:
         return out
-    q1, median, q3 = quantile_type7(sorted_values, np.array([0.25, 0.5, 0.75])).tolist()
-    counts = run_lengths(sorted_values) if counts is None else counts
+    q1, median, q3 = quantile_type7(ordered, np.array([0.25, 0.5, 0.75])).tolist()
+    counts = ordered.run_lengths() if counts is None else counts
+    low, high = (float(v) for v in ordered.at(np.array([0, n - 1])))
     out.update(
-        distinct=int(counts.size), min=float(sorted_values[0]), q1=q1, median=median, q3=q3,
-        max=float(sorted_values[-1]),
-        deciles=quantile_type7(sorted_values, np.arange(1, 10) / 10).tolist(),
+        distinct=int(counts.size), min=low, q1=q1, median=median, q3=q3, max=high,
+        deciles=quantile_type7(ordered, np.arange(1, 10) / 10).tolist(),
     )
-    out.update(moments(sorted_values))
-    fences = tukey_fences(sorted_values)
-    mad, modified = modified_z_sorted(sorted_values, median)
+    out.update(moments(ordered))
+    fences = tukey_fences(ordered)
+    mad, modified = modified_z_sorted(ordered, median)
     out["mad"] = mad
     out["outliers"] = {"tukey": fences.pop("tukey"), "tukey_far": fences.pop("tukey_far"), "modified_z": modified}
     if modified is None:
         out["outliers"]["modified_z_note"] = MAD_ZERO_NOTE
     out["fences"] = fences
-    out["histogram"] = histogram(sorted_values, integer, q3 - q1)
+    out["histogram"] = histogram(ordered, integer, q3 - q1)
     out.update(near_zero_variance(counts, n))
-    out["normality"] = normality(sorted_values, out["skewness"], out["kurtosis"])
-    out["negative"] = int(np.searchsorted(sorted_values, 0.0, side="left"))
+    out["normality"] = normality(ordered, out["skewness"], out["kurtosis"])
+    out["negative"] = int(ordered.below(0.0, "left"))
     return out
 
 
