@@ -13,7 +13,7 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
-from studylog.data.spec import NUMERIC_TYPES, TableSpec, VariableSpec
+from studylog.data.spec import TableSpec, VariableSpec
 from studylog.errors import NoStudyFound
 from studylog.store.session import StoreLocation
 
@@ -151,11 +151,13 @@ def profile_file(
         reading = reader.submit(_read, path, encoding, sheet, batches.put)
         # what the profile needs besides the data, imported while the file is read (pyarrow reads
         # outside Python's lock): the computations, and the distributions of the p-values
+        from studylog.data import early as early_work
         from studylog.data import profile, significance
 
         _quietly(significance.tails)
-        # then the numeric reading of each batch read, on the core the parse leaves idle
-        early = profile.EarlyFloats(_blocks(path))
+        # then the reading of each batch read as numbers, dates or levels, on the core the parse
+        # leaves idle
+        early = early_work.EarlyColumns(_blocks(path))
         while True:
             # a few batches at a time (the fewer the calls, the less time in Python), and all there are
             come = [batches.get()]
@@ -225,6 +227,7 @@ def _quietly(load: Callable[[], Any]) -> None:
 
 def _profile_read(data: Any, path: Path, pool: Any, early: Any, *, target: str | None, by: str | None,
                   strong: float, table: str | None, location: StoreLocation | None) -> dict[str, Any]:
+    from studylog.data import early as early_work
     from studylog.data import profile
 
     columns = list(data.column_names)
@@ -244,10 +247,10 @@ def _profile_read(data: Any, path: Path, pool: Any, early: Any, *, target: str |
         elif known.target in columns:
             target = known.target
     weights = [name for name, spec in specs.items() if spec.role == "weight"]
-    floats = early.take(data, [name for name, spec in specs.items() if spec.type in NUMERIC_TYPES])
+    read_early = early.take(data, {name: early_work.wanted(spec) for name, spec in specs.items()})
     document = profile.profile_table(
         data, specs, target=target, by=by, strong=strong, inferred_missing=inferred_missing,
-        weight=weights[0] if weights else None, availability=availability, pool=pool, floats=floats,
+        weight=weights[0] if weights else None, availability=availability, pool=pool, early=read_early,
     )
     document["file"] = str(path)
     document["source"] = {

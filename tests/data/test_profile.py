@@ -186,20 +186,24 @@ def test_arrow_to_numpy_keeps_offsets_and_fills_nulls() -> None:
 
 
 @pytest.mark.parametrize("stray_quote", [False, True])
-def test_numbers_worked_out_while_the_file_is_read_change_nothing(tmp_path, monkeypatch: pytest.MonkeyPatch,
+def test_columns_worked_out_while_the_file_is_read_change_nothing(tmp_path, monkeypatch: pytest.MonkeyPatch,
                                                                   stray_quote: bool) -> None:
     from studylog import profiling
-    from studylog.data import profile, read_whole
+    from studylog.data import early as early_work
+    from studylog.data import read_whole
 
     monkeypatch.setattr(read_whole, "WHOLE_BLOCK", 1 << 10)  # many batches
     rng = np.random.default_rng(7)
-    rows = [f"{i},{rng.normal():.3f},{'' if i % 13 == 0 else rng.integers(0, 9)},g{i % 3}" for i in range(3000)]
+    rows = [f"{i},{rng.normal():.3f},{'' if i % 13 == 0 else rng.integers(0, 9)},g{i % 3},"
+            f"{'' if i % 17 == 0 else f'2024-03-{1 + i % 28:02d}'},{'' if i % 11 == 0 else 'ab'[i % 2]}"
+            for i in range(3000)]
+    rows[2500] = "2500,1.5,x,g1,2024-02-30,b"  # a text that is no number, a day that does not exist
     if stray_quote:
-        rows[5] = '5,1.5,x"y,g2'  # an odd number of quotes: the whole-file read is given up
+        rows[5] = '5,1.5,x"y,g2,2024-01-01,a'  # an odd number of quotes: the whole-file read is given up
     path = tmp_path / "x.csv"
-    path.write_text("id,x,n,g\n" + "\n".join(rows) + "\n")
+    path.write_text("id,x,n,g,day,flag\n" + "\n".join(rows) + "\n")
     early = profiling.profile_file(path, target="g")
-    monkeypatch.setattr(profile.EarlyFloats, "add", lambda self, batches: None)
+    monkeypatch.setattr(early_work.EarlyColumns, "add", lambda self, batches: None)
     assert json.dumps(early, sort_keys=True) == json.dumps(profiling.profile_file(path, target="g"), sort_keys=True)
 
 

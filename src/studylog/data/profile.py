@@ -21,6 +21,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from studylog.data import cells, pairs, significance, suggest, univariate
+from studylog.data.early import Early
 from studylog.data.ordered import OrderedValues
 from studylog.data.spec import LEVEL_TYPES, NUMERIC_TYPES, VariableSpec
 from studylog.errors import UsageError
@@ -61,81 +62,6 @@ def _ordinal_rank(levels: Sequence[str], spec: VariableSpec) -> np.ndarray:
     return rank
 
 
-# wider tables are left to the columns' own work: their batches hold few rows each, and the calls
-# per batch and column would cost more than the casts
-EARLY_COLUMNS = 256
-
-
-class EarlyFloats:
-    """Each column's texts as float64 values with NaN for nulls (``cells.float_values``, then
-    ``to_numpy``), worked out a batch at a time while the file is still being read, on the core the
-    single-threaded parse leaves idle. A column is no longer tried from its first batch that does
-    not read as numbers. Casting is per value, so the batches' values joined are exactly the
-    column's. Each column's values go to one array of its own, sized from the first batch's share
-    of the file (``parts``: the number of batches expected): no memory is held per batch."""
-
-    def __init__(self, parts: float = 1.0) -> None:
-        self._expected = max(parts, 1.0)
-        self._values: list[np.ndarray | None] = []
-        self._rows = 0
-        self._lengths: list[int] = []
-        self._usable = True
-
-    def add(self, batches: Sequence[pa.RecordBatch]) -> None:
-        """The next batches of rows, in order (as many as have come: the fewer the calls, the less
-        time in Python)."""
-        if not self._usable or not batches:
-            return
-        rows = sum(batch.num_rows for batch in batches)
-        if not self._lengths:
-            if batches[0].num_columns > EARLY_COLUMNS:
-                self.give_up()
-                return
-            room = int(max(batches[0].num_rows, 1) * self._expected * 1.05) + rows + 1024
-            self._values = [np.empty(room) for _ in range(batches[0].num_columns)]
-        start, end = self._rows, self._rows + rows
-        for position, values in enumerate(self._values):
-            if values is None:
-                continue
-            texts = pa.chunked_array([batch.column(position) for batch in batches], pa.string())
-            try:
-                floats = pc.cast(texts, pa.float64())
-            except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
-                self._values[position] = None
-                continue
-            if end > values.size:
-                grown = np.empty(max(end, int(values.size * 1.5)))
-                grown[:start] = values[:start]
-                self._values[position] = values = grown
-            # as to_numpy: NaN where null
-            if floats.null_count:
-                floats = pc.fill_null(floats, np.nan)
-            np.concatenate([cells.chunk_values(chunk, np.float64) for chunk in floats.chunks],
-                           out=values[start:end])
-        self._rows = end
-        self._lengths.extend(batch.num_rows for batch in batches)
-
-    def give_up(self) -> None:
-        """The batches so far stand for nothing (see read_table)."""
-        self._usable = False
-        self._values = []
-
-    def take(self, table: pa.Table, names: Sequence[str]) -> dict[str, np.ndarray | None]:
-        """For the columns ``names`` of ``table`` (the table read): their values, or None when a
-        column does not read as numbers; only when the batches are the table's chunks. The work is
-        forgotten here."""
-        values_of = self._values if self._usable and len(self._values) == table.num_columns else []
-        self._values = []
-        if not values_of or self._lengths != [len(chunk) for chunk in table.column(0).chunks]:
-            return {}
-        position = {name: i for i, name in enumerate(table.column_names)}
-        found: dict[str, np.ndarray | None] = {}
-        for name in names:
-            values = values_of[position[name]]
-            found[name] = None if values is None else values[:self._rows]
-        return found
-
-
 class _Column:
     """What the pair and target steps need from one profiled column."""
 
@@ -147,28 +73,28 @@ class _Column:
         self.levels: pairs.LevelColumn | None = None
 
 
-_UNKNOWN: Any = object()
-
-
 def _profile_column(name: str, strings: pa.ChunkedArray, spec: VariableSpec,
-                    inferred_codes: Sequence[str], known_floats: Any = _UNKNOWN) -> _Column:
+                    inferred_codes: Sequence[str], known: Early | None = None) -> _Column:
+    """``known``: the column as read while the file was read (``data.early``), of the kind this
+    variable is read as."""
     declared = [code.code for code in spec.missing_codes]
     extra = [code for code in inferred_codes if code not in declared]
     kind = spec.type
-    floats = dates = encoded = level_codes = level_counts = None
+    floats = dates = seconds = encoded = level_codes = level_counts = None
     # blanks and missing codes found once per distinct level, or not looked for in a column that
     # reads as numbers throughout
     if kind in LEVEL_TYPES or kind == "boolean":
-        encoded = cells.Encoded.of(strings)
+        encoded = known.value if known is not None else cells.Encoded.of(strings)
         missing, level_codes, level_counts = cells.find_missing_encoded(encoded, declared + extra)
     else:
-        if kind in NUMERIC_TYPES and known_floats is not _UNKNOWN:
-            floats = known_floats
-        elif kind in NUMERIC_TYPES:
-            floats = cells.float_values(strings)
+        if kind in NUMERIC_TYPES:
+            floats = known.value if known is not None else cells.float_values(strings)
         elif kind in ("date", "datetime") and cells.date_format(spec, kind) == "%Y-%m-%d":
-            dates = cells.iso_dates(strings)
-        blank_free = floats is not None or dates is not None
+            if known is not None:
+                seconds = known.value
+            else:
+                dates = cells.iso_dates(strings)
+        blank_free = floats is not None or dates is not None or seconds is not None
         missing = cells.find_missing(strings, declared + extra, blank_free=blank_free)
     rows = len(strings)
     codes = [dict(c, declared=c["code"] in declared) for c in missing.codes]
@@ -197,8 +123,9 @@ def _profile_column(name: str, strings: pa.ChunkedArray, spec: VariableSpec,
             for key in ("min", "max"):
                 entry[key] = None
     elif kind in ("date", "datetime"):
-        seconds = cells.parse_dates(strings, spec, kind, dates,
-                                         iso_tried=cells.date_format(spec, kind) == "%Y-%m-%d")
+        if seconds is None:
+            seconds = cells.parse_dates(strings, spec, kind, dates,
+                                        iso_tried=cells.date_format(spec, kind) == "%Y-%m-%d")
         seconds[missing.mask] = np.nan
         invalid = ~missing.mask & np.isnan(seconds)
         entry.update(univariate.date_summary(np.sort(seconds[~np.isnan(seconds)]), kind))
@@ -345,11 +272,11 @@ def profile_table(
     weight: str | None = None,
     availability: Mapping[str, str] | None = None,
     pool: Executor | None = None,
-    floats: dict[str, np.ndarray | None] | None = None,
+    early: dict[str, Early] | None = None,
 ) -> dict[str, Any]:
     """The whole profile as the contract's JSON document (numbers may still be numpy/NaN: see clean).
-    ``pool``: the threads to use (default: ``workers()``, shut down at the end). ``floats``: some
-    numeric columns' values known already (``EarlyFloats.take``); emptied here, so that each is
+    ``pool``: the threads to use (default: ``workers()``, shut down at the end). ``early``: some
+    columns as read while the file was read (``EarlyColumns.take``); emptied here, so that each is
     freed once its column is done."""
     names = list(table.column_names)
     for option, name in (("--target", target), ("--by", by)):
@@ -365,9 +292,9 @@ def profile_table(
         # columns are independent and numpy/Arrow release the GIL in their loops: one pool for every
         # column and pair, the costly columns first (also the ones whose passing copies are largest,
         # made before the numeric columns' sorts are held)
-        known = floats if floats is not None else {}
+        known = early if early is not None else {}
         running = {name: pool.submit(_profile_column, name, table.column(name), spec_of[name],
-                                     inferred_missing.get(name, ()), known.pop(name, _UNKNOWN))
+                                     inferred_missing.get(name, ()), known.pop(name, None))
                    for name in sorted(names, key=lambda name: -COST.get(spec_of[name].type, 1))}
         known.clear()
         found = _Pairing(table, spec_of, target, pool).follow(running)
