@@ -118,7 +118,8 @@ class Encoded:
 
 def find_missing_encoded(encoded: Encoded, codes: Sequence[str]) -> tuple[Missing, np.ndarray, np.ndarray]:
     """``find_missing`` of an encoded column: each distinct text is tested once. Also each row's
-    level index with -1 where missing, and the rows of each level that are not missing."""
+    level index with -1 where missing (the encoded indices themselves when only nulls are missing),
+    and the rows of each level that are not missing."""
     dictionary, indices = encoded.dictionary, encoded.indices
     present = indices >= 0
     per_level = np.bincount(indices[present], minlength=len(dictionary))
@@ -129,9 +130,12 @@ def find_missing_encoded(encoded: Encoded, codes: Sequence[str]) -> tuple[Missin
         hits = as_bool(pc.equal(dictionary, code))
         counted.append({"code": code, "count": int(per_level[hits].sum())})
         missing_level |= hits
+    blanks = indices.size - int(np.count_nonzero(present)) + int(per_level[blank].sum())
+    if not missing_level.any():
+        # only the nulls are missing, and their index is -1 already: the indices serve as they are
+        return Missing(mask=~present, blank=blanks, codes=counted), indices, per_level
     # a null's index, -1, reads the last entry: missing
     mask = np.append(missing_level, True)[indices]
-    blanks = indices.size - int(np.count_nonzero(present)) + int(per_level[blank].sum())
     present_counts = np.where(missing_level, 0, per_level)
     return Missing(mask=mask, blank=blanks, codes=counted), np.where(mask, -1, indices), present_counts
 
