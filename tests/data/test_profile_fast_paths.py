@@ -71,6 +71,7 @@ def test_spearman_from_each_columns_groups_equals_ranking_the_pairs_rows(integer
     np.round(np.random.default_rng(RNG_SEED).random(3000), 4),
     np.round(np.random.default_rng(RNG_SEED).normal(0, 1, 3000), 1),  # holds -0.0: sorted
     np.random.default_rng(RNG_SEED).lognormal(0, 1, 3000),  # full precision: sorted
+    np.round(np.random.default_rng(RNG_SEED).lognormal(10, 1, 3000), 2),  # too wide to count: packed keys
     np.array([1e300, 0.5, 2.0]),
 ])
 def test_counting_decimals_builds_the_same_rank_base_as_sorting(values: np.ndarray,
@@ -158,3 +159,18 @@ def test_distribution_tails_load_without_the_package_and_leave_it_importable() -
     )
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
     assert done.returncode == 0, done.stderr
+
+
+@pytest.mark.parametrize("span", [10**9, 2**40, 2**60])
+def test_whole_numbers_too_wide_to_count_are_ordered_as_an_argsort_orders_them(
+        span: int, monkeypatch: pytest.MonkeyPatch) -> None:
+    # beyond 2^53 - 1 the numbers are not all exact in a float64 and an argsort orders them
+    values = np.random.default_rng(RNG_SEED).integers(0, span, 5000).astype(np.float64)
+    values[::13] = np.nan
+    values[5:40] = values[4]  # ties
+    packed = pairs.RankBase.of(values, integer=True)
+    monkeypatch.setattr(pairs, "_packed_sort", lambda *args: None)
+    ordered = pairs.RankBase.of(values, integer=True)
+    for name in ("valid", "sorted_values", "group_row", "group_counts", "centred", "missing_rows"):
+        assert np.array_equal(getattr(packed, name), getattr(ordered, name)), name
+    assert packed.groups == ordered.groups

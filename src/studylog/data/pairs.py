@@ -93,20 +93,26 @@ class RankBase:
             group_row = np.zeros(values.size, dtype=np.intp)
             group_row[valid] = offsets  # by the mask: twice as fast as by the rows' numbers
             return cls(valid, ordered, group_row, int(counts.size), counts, centred=values).finish(present)
-        scale = None if integer else _decimal_scale(present)
-        if scale is not None:
-            counted = _counted_decimals(cls, values, valid, present, scale)
+        scale = 1.0 if integer else _decimal_scale(present)
+        whole = _whole_at_scale(present, scale) if scale is not None else None
+        if whole is not None and not integer:
+            counted = _counted_decimals(cls, values, valid, present, scale, *whole)
             if counted is not None:
                 return counted
         rows = np.flatnonzero(valid)
-        order = np.argsort(present)  # tie order is irrelevant: ties share a group
-        sorted_values = present[order]
+        packed = _packed_sort(rows, scale, *whole) if whole is not None and scale is not None else None
+        if packed is not None:
+            row_order, sorted_values = packed
+        else:
+            order = np.argsort(present)  # tie order is irrelevant: ties share a group
+            sorted_values = present[order]
+            row_order = rows[order]
         starts = np.empty(sorted_values.size, dtype=bool)
         starts[:1] = True
         starts[1:] = sorted_values[1:] != sorted_values[:-1]
         group_sorted = np.cumsum(starts, dtype=np.intp) - 1
         group_row = np.zeros(values.size, dtype=np.intp)
-        group_row[rows[order]] = group_sorted
+        group_row[row_order] = group_sorted
         groups = int(group_sorted[-1]) + 1 if group_sorted.size else 0
         counts = np.diff(np.append(np.flatnonzero(starts), sorted_values.size))
         return cls(valid, SortedValues(sorted_values), group_row, groups, counts, centred=values).finish(present)
@@ -135,9 +141,11 @@ class RankBase:
         dropped = other.missing_rows[self.valid[other.missing_rows]]
         if dropped.size:
             counts = counts - np.bincount(self.group_row[dropped], minlength=self.groups)
-        average = _average_ranks(counts)
-        ranks = np.take(np.append(average, 0.0), self.group_row)
-        return ranks, float((counts * (average * average)).sum())
+        table = np.empty(self.groups + 1)  # the slot after the groups: 0 for the missing rows
+        average = _average_ranks(counts, out=table[:-1])
+        table[-1] = 0.0
+        ranks = np.take(table, self.group_row)
+        return ranks, float(np.einsum("i,i,i->", counts, average, average))
 
     def rank_sums(self, rows: np.ndarray) -> tuple[np.ndarray, float]:
         """Ranks on ``rows`` and the sum of their squares (from the groups, not the rows)."""
@@ -162,18 +170,26 @@ def _decimal_scale(present: np.ndarray) -> float | None:
     return None
 
 
-def _counted_decimals(cls: type[RankBase], values: np.ndarray, valid: np.ndarray, present: np.ndarray,
-                      scale: float) -> RankBase | None:
-    """The same RankBase as sorting gives, by counting: every value is k / scale for a whole k, the
-    ks span few values, and k / scale gives back each value exactly; None when that does not hold
-    (or a value is -0, which counting would turn into 0)."""
-    whole = np.round(present * scale)
-    low, high = float(whole.min()), float(whole.max())
-    if high - low >= min(INTEGER_COUNTING_SPAN, 2 * present.size + 1024) or max(-low, high) >= 2.0**40:
+def _whole_at_scale(present: np.ndarray, scale: float) -> tuple[np.ndarray, float, float] | None:
+    """Every value times ``scale`` as a whole number k (as float64), with the least and the largest,
+    when k / scale gives back each value exactly and every k is exact in a float64; None otherwise,
+    or when a value is -0 (which counting and packing would turn into 0)."""
+    whole = np.round(present * scale) if scale != 1.0 else present
+    if not whole.size:
         return None
-    if not np.array_equal(whole / scale, present):
+    low, high = float(whole.min()), float(whole.max())
+    if max(-low, high) >= 2.0**53 or (scale != 1.0 and not np.array_equal(whole / scale, present)):
         return None
     if low <= 0 <= high and np.signbit(present[present == 0]).any():
+        return None
+    return whole, low, high
+
+
+def _counted_decimals(cls: type[RankBase], values: np.ndarray, valid: np.ndarray, present: np.ndarray,
+                      scale: float, whole: np.ndarray, low: float, high: float) -> RankBase | None:
+    """The same RankBase as sorting gives, by counting: every value is k / scale for a whole k
+    (``_whole_at_scale``), and the ks span few values; None when they span many."""
+    if high - low >= min(INTEGER_COUNTING_SPAN, 2 * present.size + 1024) or max(-low, high) >= 2.0**40:
         return None
     offsets = (whole - low).astype(np.intp)
     span_counts = np.bincount(offsets)
@@ -188,16 +204,37 @@ def _counted_decimals(cls: type[RankBase], values: np.ndarray, valid: np.ndarray
     return cls(valid, ordered, group_row, int(counts.size), counts, centred=values).finish(present)
 
 
-def _average_ranks(counts: np.ndarray) -> np.ndarray:
+def _packed_sort(rows: np.ndarray, scale: float, whole: np.ndarray, low: float,
+                 high: float) -> tuple[np.ndarray, np.ndarray] | None:
+    """The rows in the order of their values, and the values in order, for whole numbers (at
+    ``scale``: ``_whole_at_scale``) spanning too many values to count: one sort of 64-bit keys, each a
+    number's offset above the least with its row in the low bits, several times faster than an
+    argsort of the values; None when the keys need more than 64 bits."""
+    bits = max(int(rows[-1]).bit_length(), 1) if rows.size else 1
+    if high - low >= 2.0 ** (64 - bits):
+        return None
+    keys = np.subtract(whole, low).astype(np.uint64)
+    keys <<= np.uint64(bits)
+    keys |= rows.astype(np.uint64)
+    keys.sort()
+    row_order = (keys & np.uint64((1 << bits) - 1)).astype(np.intp)
+    keys >>= np.uint64(bits)
+    # k / scale gives back each value exactly (``_whole_at_scale``): the values themselves, in order
+    ordered = keys.astype(np.float64)
+    ordered += low
+    if scale != 1.0:
+        ordered /= scale
+    return row_order, ordered
+
+
+def _average_ranks(counts: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
     """Each tie group's average rank: its last position less half of the others in it, that is
-    (2 cumsum - count + 1) / 2, in integers until the one exact halving."""
+    (2 cumsum - count + 1) / 2, in integers until the one exact halving (into ``out``, float64)."""
     twice = np.cumsum(counts)
     twice *= 2
     twice -= counts
     twice += 1
-    average = twice.astype(np.float64)
-    average *= 0.5
-    return average
+    return np.multiply(twice, 0.5, out=out)
 
 
 def pearson(x: np.ndarray, y: np.ndarray) -> float | None:
