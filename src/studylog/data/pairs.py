@@ -144,7 +144,7 @@ class RankBase:
         table = np.empty(self.groups + 1)  # the slot after the groups: 0 for the missing rows
         average = _average_ranks(counts, out=table[:-1])
         table[-1] = 0.0
-        ranks = np.take(table, self.group_row)
+        ranks = np.take(table, self.group_row, mode="clip")  # in range: clipping skips the check
         return ranks, float(np.einsum("i,i,i->", counts, average, average))
 
     def rank_sums(self, rows: np.ndarray) -> tuple[np.ndarray, float]:
