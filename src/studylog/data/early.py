@@ -145,6 +145,7 @@ class EarlyColumns:
         self._lengths: list[int] = []
         self._usable = True
         self._not_numbers: set[int] = set()  # columns found to hold a text that is no number
+        self._room = 0  # the rows each column's array is made for (from the first batch)
 
     def add(self, batches: Sequence[pa.RecordBatch]) -> None:
         """The next batches of rows, in order (as many as have come: the fewer the calls, the less
