@@ -321,9 +321,10 @@ def _as_boolean(proposal: Proposal, rest: _Values) -> bool:
     import pyarrow as pa
     import pyarrow.compute as pc
 
+    if len(rest.values) > 8:  # two values, a few spellings of each at most
+        return False
     lowered = pc.utf8_lower(rest.values)
-    spellings = set(lowered.to_pylist()) if len(rest.values) <= 8 else set()
-    if len(spellings) != 2:
+    if len(spellings := set(lowered.to_pylist())) != 2:
         return False
     for yes, no in BOOLEAN_PAIRS:
         if spellings == {yes, no}:
