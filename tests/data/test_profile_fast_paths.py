@@ -174,3 +174,32 @@ def test_whole_numbers_too_wide_to_count_are_ordered_as_an_argsort_orders_them(
     for name in ("valid", "sorted_values", "group_row", "group_counts", "centred", "missing_rows"):
         assert np.array_equal(getattr(packed, name), getattr(ordered, name)), name
     assert packed.groups == ordered.groups
+
+
+@pytest.mark.parametrize("ties", [False, True])
+def test_pair_ranks_from_the_columns_own_ranks_equal_those_counted_again(ties: bool,
+                                                                       monkeypatch: pytest.MonkeyPatch) -> None:
+    # many tie groups, few rows dropped for the pair: the ranks come from the column's own less the
+    # steps the dropped rows make (RankBase._pair_ranks_sparse); counted again, they must be the same
+    from scipy import stats
+
+    rng = np.random.default_rng(RNG_SEED)
+    n = 4000
+    x = rng.normal(size=n) if not ties else rng.integers(0, 8000, n) / 7  # ties: some 3,000 groups
+    x[rng.random(n) < 0.03] = np.nan
+    y = rng.normal(size=n) + np.nan_to_num(x)
+    y[rng.random(n) < 0.01] = np.nan
+    a, b = pairs.RankBase.of(x), pairs.RankBase.of(y)
+    dropped = b.missing_rows[a.valid[b.missing_rows]]
+    assert a.groups > pairs.SPARSE_GROUPS * dropped.size  # the sparse path is the one taken
+    both = a.valid & b.valid
+    assert pairs.pair_cases(a, b) == pairs.pair_cases(b, a) == int(np.count_nonzero(both))
+    sparse_ranks, sparse_squares = a.pair_ranks(b)
+    monkeypatch.setattr(pairs, "SPARSE_GROUPS", n * n)
+    dense_ranks, dense_squares = a.pair_ranks(b)
+    assert np.array_equal(sparse_ranks, dense_ranks)
+    assert sparse_squares == pytest.approx(dense_squares, rel=1e-14)
+    assert np.array_equal(sparse_ranks[both], stats.rankdata(x[both]))  # scipy's average ranks
+    monkeypatch.undo()
+    expected = stats.spearmanr(x[both], y[both]).statistic  # scipy as the reference
+    assert pairs.spearman_pair(a, b) == pytest.approx(expected, rel=1e-12)

@@ -34,6 +34,9 @@ MAX_NUMERIC_COLUMNS = 50
 MAX_PAIR_LEVELS = 50
 DEFAULT_STRONG = 0.9
 INTEGER_COUNTING_SPAN = 1 << 22
+# a pair's ranks are worked out from the column's own where it has this many times more tie groups
+# than rows dropped for the pair (``RankBase._pair_ranks_sparse``)
+SPARSE_GROUPS = 8
 
 
 def _dot(a: np.ndarray, b: np.ndarray) -> float:
@@ -139,6 +142,8 @@ class RankBase:
         here, which the other's 0 there cancels in a sum of products: no pair selects its rows."""
         counts = self.group_counts
         dropped = other.missing_rows[self.valid[other.missing_rows]]
+        if dropped.size and self.groups > SPARSE_GROUPS * dropped.size:
+            return self._pair_ranks_sparse(dropped)
         if dropped.size:
             counts = counts - np.bincount(self.group_row[dropped], minlength=self.groups)
         table = np.empty(self.groups + 1)  # the slot after the groups: 0 for the missing rows
@@ -146,6 +151,43 @@ class RankBase:
         table[-1] = 0.0
         ranks = np.take(table, self.group_row, mode="clip")  # in range: clipping skips the check
         return ranks, float(np.einsum("i,i,i->", counts, average, average))
+
+    def _pair_ranks_sparse(self, dropped: np.ndarray) -> tuple[np.ndarray, float]:
+        """``pair_ranks`` of a column of many tie groups (nearly all values distinct), where the rows
+        dropped for the pair touch few of them: each group's rank moves down by the dropped rows in
+        the groups before it (a step at each group touched) and by half those in it, so the ranks are
+        the column's own less those steps, and the sum of squares has its closed form
+        n (n + 1) (2n + 1) / 6 - sum(t^3 - t) / 12 over the pair's tie groups of t rows."""
+        touched, lost = np.unique(self.group_row[dropped], return_counts=True)
+        below = np.concatenate(([0], np.cumsum(lost)))  # dropped rows in the groups before each step
+        lengths = np.diff(np.concatenate(([0], touched + 1, [self.groups])))
+        table = np.empty(self.groups + 1)  # the slot after the groups: 0 for the missing rows
+        np.subtract(self._own_average, np.repeat(below, lengths), out=table[:-1])
+        table[touched] -= 0.5 * lost
+        table[-1] = 0.0
+        ranks = np.take(table, self.group_row, mode="clip")
+        ties = self._tie_groups
+        sizes = self.group_counts[ties].astype(np.float64)
+        if ties.size:
+            at = np.searchsorted(ties, touched).clip(max=ties.size - 1)
+            hit = ties[at] == touched
+            sizes[at[hit]] -= lost[hit]
+        n = self.present - int(dropped.size)
+        return ranks, float(n * (n + 1) * (2 * n + 1)) / 6 - float(np.sum(sizes**3 - sizes)) / 12
+
+    @functools.cached_property
+    def present(self) -> int:
+        """How many values the column has."""
+        return int(self.valid.size - self.missing_rows.size)
+
+    @functools.cached_property
+    def _own_average(self) -> np.ndarray:
+        """Each tie group's average rank among all the column's values."""
+        return _average_ranks(self.group_counts)
+
+    @functools.cached_property
+    def _tie_groups(self) -> np.ndarray:
+        return np.flatnonzero(self.group_counts >= 2)
 
     def rank_sums(self, rows: np.ndarray) -> tuple[np.ndarray, float]:
         """Ranks on ``rows`` and the sum of their squares (from the groups, not the rows)."""
@@ -248,8 +290,8 @@ def pearson(x: np.ndarray, y: np.ndarray) -> float | None:
     return max(-1.0, min(1.0, _dot(dx, dy) / math.sqrt(sxx * syy)))
 
 
-def pearson_pair(x: RankBase, y: RankBase, both: np.ndarray | None = None) -> tuple[float | None, int]:
-    """Pearson's r on the pair's complete cases, and their number (``both``: their mask, if known).
+def pearson_pair(x: RankBase, y: RankBase, cases: int | None = None) -> tuple[float | None, int]:
+    """Pearson's r on the pair's complete cases, and their number (``cases``: ``pair_cases``, if known).
 
     Sums over the complete cases are the column's sums less those over the rows where the other
     variable is missing (few, usually): with centred values c (0 where missing),
@@ -257,7 +299,7 @@ def pearson_pair(x: RankBase, y: RankBase, both: np.ndarray | None = None) -> tu
     r = (Sxy - Sx Sy / n) / sqrt((Sxx - Sx^2 / n)(Syy - Sy^2 / n)). Centring by each column's mean
     keeps these differences of sums well conditioned.
     """
-    n = int(np.count_nonzero(x.valid & y.valid if both is None else both))
+    n = pair_cases(x, y) if cases is None else cases
     if n < 2:
         return None, n
     x_out = x.centred[y.missing_rows]
@@ -295,10 +337,10 @@ def spearman(x: RankBase, y: RankBase, rows: np.ndarray) -> float | None:
     return _rank_correlation(rx, ry, sxx, syy, rows.size)
 
 
-def spearman_pair(x: RankBase, y: RankBase, both: np.ndarray | None = None) -> float | None:
-    """``spearman`` on the rows where both are present (``both``: their mask, if known), from
+def spearman_pair(x: RankBase, y: RankBase, cases: int | None = None) -> float | None:
+    """``spearman`` on the rows where both are present (``cases``: how many, if known), from
     ``RankBase.pair_ranks``."""
-    n = int(np.count_nonzero(x.valid & y.valid if both is None else both))
+    n = pair_cases(x, y) if cases is None else cases
     rx, sxx = x.pair_ranks(y)
     ry, syy = y.pair_ranks(x)
     return _rank_correlation(rx, ry, sxx, syy, n)
@@ -339,16 +381,21 @@ def correlation_pairs(columns: Sequence[NumericColumn]) -> list[tuple[NumericCol
     return [(a, b) for i, a in enumerate(used) for b in used[i + 1:]]
 
 
+def pair_cases(x: RankBase, y: RankBase) -> int:
+    """How many rows have both values: x's less those where only y is missing (no pass over all rows)."""
+    return x.present - int(np.count_nonzero(x.valid[y.missing_rows]))
+
+
 def correlation(job: tuple[NumericColumn, NumericColumn]) -> dict[str, Any]:
     """One pair of ``correlations`` (before the strong pairs are marked)."""
     a, b = job
-    both = a.base.valid & b.base.valid
-    r, n = pearson_pair(a.base, b.base, both)
+    cases = pair_cases(a.base, b.base)
+    r, n = pearson_pair(a.base, b.base, cases)
     entry: dict[str, Any] = {"a": a.name, "b": b.name, "pearson": None, "spearman": None, "n": n,
                              "strong": False}
     if n >= MIN_PAIR_CASES:
         entry["pearson"] = r
-        entry["spearman"] = spearman_pair(a.base, b.base, both)
+        entry["spearman"] = spearman_pair(a.base, b.base, cases)
     return entry
 
 
