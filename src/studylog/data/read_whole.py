@@ -15,6 +15,7 @@ if TYPE_CHECKING:
     import pyarrow as pa
 
 SCAN_BLOCK = 1 << 23
+SCAN_PIECE = 1 << 20
 # Blocks of the whole-file read: the parser's memory stays small beside the table.
 WHOLE_BLOCK = 1 << 20
 
@@ -98,20 +99,24 @@ def scan_bytes(path: Path, watch_nul: bool, check_utf8: bool = False) -> tuple[i
     decoder = codecs.getincrementaldecoder("utf-8")()
     pending = False  # the decoder holds the start of a character cut by the end of a block
     valid = True
+    # one buffer read into again and again; each block looked at in pieces that stay in the cache,
+    # and a NUL byte or a non-ASCII one looked for by the block's least and largest byte
+    buffer = bytearray(SCAN_BLOCK)
+    array = np.frombuffer(buffer, dtype=np.uint8)
     with open(path, "rb", buffering=0) as handle:
-        while chunk := handle.read(SCAN_BLOCK):
-            if watch_nul and nul_at is None:
-                found = chunk.find(b"\x00")
-                if found >= 0:
-                    nul_at = done + found
-            quotes += int(np.count_nonzero(np.frombuffer(chunk, dtype=np.uint8) == QUOTE))
-            if check_utf8 and valid and (pending or not chunk.isascii()):
+        while got := handle.readinto(buffer):
+            block = array[:got]
+            for start in range(0, got, SCAN_PIECE):
+                quotes += int(np.count_nonzero(block[start:start + SCAN_PIECE] == QUOTE))
+            if watch_nul and nul_at is None and int(block.min()) == 0:
+                nul_at = done + buffer.find(b"\x00", 0, got)
+            if check_utf8 and valid and (pending or int(block.max()) >= 0x80):
                 try:
-                    decoder.decode(chunk)
+                    decoder.decode(memoryview(buffer)[:got])
                 except UnicodeDecodeError:
                     valid = False
                 pending = bool(decoder.getstate()[0])
-            done += len(chunk)
+            done += got
     if check_utf8 and valid and pending:
         valid = False  # the file ends inside a character
     return nul_at, quotes, valid
