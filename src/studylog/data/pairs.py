@@ -453,6 +453,14 @@ class LevelColumn:
         return self.codes >= 0
 
     @functools.cached_property
+    def shifted(self) -> np.ndarray:
+        """The codes plus one (0 where missing), in 16 bits when the column has at most
+        MAX_PAIR_LEVELS levels: the cells of a pair of such columns fit (``association``), and the
+        passes over a quarter of the bytes are that much faster (made once, read by every pair)."""
+        shifted = self.codes + 1
+        return shifted.astype(np.int16) if self.levels <= MAX_PAIR_LEVELS else shifted
+
+    @functools.cached_property
     def slotted(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """The codes with a missing level's rows in a slot after the levels (``levels``), the rows of
         each level, and the rows where the level is missing (made once, for sums by level over all
@@ -480,10 +488,8 @@ def association(job: tuple[LevelColumn, LevelColumn]) -> dict[str, Any]:
     """One pair of ``associations``."""
     a, b = job
     # counted with a row and a column for the missing (index -1 + 1 = 0), then left out: one pass
-    cell = a.codes + 1
-    cell *= b.levels + 1
-    cell += b.codes
-    cell += 1
+    cell = a.shifted * (b.levels + 1)
+    cell += b.shifted
     joint = np.bincount(cell, minlength=(a.levels + 1) * (b.levels + 1)).reshape(a.levels + 1, b.levels + 1)
     table = np.ascontiguousarray(joint[1:, 1:])
     n = int(table.sum())
