@@ -33,7 +33,6 @@ from studylog.data.spec import LEVEL_TYPES, NUMERIC_TYPES, VariableSpec
 EARLY_COLUMNS = 256
 # a column with more distinct texts than this is no longer encoded early (free text, identifiers)
 LEVELS = 1000
-ISO_DATE_LENGTH = 10
 
 
 @dataclass
@@ -60,9 +59,8 @@ class _Numbers:
     kind = "numbers"
 
     def read(self, chunks: Sequence[pa.Array], out: np.ndarray) -> bool:
-        try:
-            floats = pc.cast(pa.chunked_array(chunks, pa.string()), pa.float64())
-        except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
+        floats = cells.float_values(pa.chunked_array(chunks, pa.string()))
+        if floats is None:
             return False
         _place(floats, out)
         return True
@@ -76,16 +74,11 @@ class _IsoDates:
 
     def read(self, chunks: Sequence[pa.Array], out: np.ndarray) -> bool:
         texts = pa.chunked_array(chunks, pa.string())
-        lengths = pc.min_max(pc.binary_length(texts))
-        low, high = lengths["min"].as_py(), lengths["max"].as_py()
-        if low is None:  # only nulls: they fit any column
+        if texts.null_count == len(texts):  # only nulls: they fit any column
             out[:] = np.nan
             return True
-        if low != ISO_DATE_LENGTH or high != ISO_DATE_LENGTH:
-            return False
-        try:
-            moments = pc.cast(texts, pa.timestamp("s"))
-        except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
+        moments = cells.iso_dates(texts)
+        if moments is None:
             return False
         _place(pc.cast(pc.cast(moments, pa.int64()), pa.float64()), out)
         return True

@@ -195,13 +195,6 @@ def _sketch_of_counts(values: np.ndarray, counts: np.ndarray) -> Any:
     return sketch
 
 
-def _at_ranks(values: np.ndarray, ends: np.ndarray, ranks: np.ndarray) -> np.ndarray:
-    """The values at 0-based ranks of the sorted multiset (``ends``: cumulative counts)."""
-    import numpy as np
-
-    return values[np.searchsorted(ends, ranks, side="right")]
-
-
 def counted_quantiles(values: np.ndarray, counts: np.ndarray, probabilities: list[float]) -> list[float]:
     """``np.quantile`` (linear, Hyndman & Fan type 7) of the values each repeated its count, from the counts.
 
@@ -210,31 +203,22 @@ def counted_quantiles(values: np.ndarray, counts: np.ndarray, probabilities: lis
     """
     import numpy as np
 
-    ends = np.cumsum(counts)
-    n = int(ends[-1])
+    from studylog.data.ordered import CountedValues
+
+    counted = CountedValues(values, counts)
+    n = counted.n
     q = np.asarray(probabilities, dtype=np.float64)
     virtual = (n - 1) * q
     previous = np.floor(virtual)
     gamma = virtual - previous
     below = np.clip(previous.astype(np.int64), 0, n - 1)
     above = np.clip(previous.astype(np.int64) + 1, 0, n - 1)
-    a = _at_ranks(values, ends, below)
-    b = _at_ranks(values, ends, above)
+    a = counted.at(below)
+    b = counted.at(above)
     difference = b - a
     result = np.asarray(a + difference * gamma)
     np.subtract(b, difference * (1 - gamma), out=result, where=gamma >= 0.5)
     return [float(v) for v in result]
-
-
-def _counted_median(values: np.ndarray, ends: np.ndarray, first: int, size: int) -> float:
-    """``np.median`` of the ``size`` sorted values from rank ``first`` on."""
-    import numpy as np
-
-    middle = first + size // 2
-    if size % 2:
-        return float(_at_ranks(values, ends, np.array([middle]))[0])
-    pair = _at_ranks(values, ends, np.array([middle - 1, middle]))
-    return float(np.mean(pair))
 
 
 def counted_outliers(values: np.ndarray, counts: np.ndarray) -> dict[str, int | None]:
@@ -247,18 +231,18 @@ def counted_outliers(values: np.ndarray, counts: np.ndarray) -> dict[str, int | 
     """
     import numpy as np
 
-    ends = np.cumsum(counts)
-    n = int(ends[-1])
+    from studylog.data.ordered import CountedValues
+
+    counted = CountedValues(values, counts)
+    n = counted.n
     half = (n + 1) // 2
-    lower_hinge = _counted_median(values, ends, 0, half)
-    upper_hinge = _counted_median(values, ends, n - half, half)
+    lower_hinge = counted.median_of(0, half)
+    upper_hinge = counted.median_of(n - half, half)
     spread = upper_hinge - lower_hinge
     inner = (values < lower_hinge - 1.5 * spread) | (values > upper_hinge + 1.5 * spread)
     outer = (values < lower_hinge - 3 * spread) | (values > upper_hinge + 3 * spread)
-    median = _counted_median(values, ends, 0, n)
-    deviations = np.abs(values - median)
-    order = np.argsort(deviations, kind="stable")
-    mad = _counted_median(deviations[order], np.cumsum(counts[order]), 0, n)
+    median = counted.median_of(0, n)
+    mad = counted.mad(median)
     modified = None
     if mad != 0:
         # a MAD of a few ulps makes far values' scores overflow to inf, which is beyond 3.5 as it should be

@@ -7,7 +7,8 @@ and the median absolute deviation. The order statistics and counts are exact and
 forms (the same values at the same ranks, so the same quantiles bit for bit); the moments of the
 counted form are weighted sums over the distinct values, equal to those of the values up to the last
 bits of floating-point summation. Counting spares the profile a column-sized array of sorted values,
-and the passes over it, for every such column.
+and the passes over it, for every such column; a check's stored profile reads its exact value counts
+through ``CountedValues`` too (``data.numeric_summary``).
 """
 
 from __future__ import annotations
@@ -95,16 +96,25 @@ class CountedValues:
         return (mean, float(np.dot(weights, d2) / self.n), float(np.dot(weights, d2 * d) / self.n),
                 float(np.dot(weights, d2 * d2) / self.n))
 
-    def absolute_deviations(self, median: float, z_limit: float, z_constant: float) -> tuple[float, int | None]:
+    def median_of(self, first: int, size: int) -> float:
+        """``np.median`` of the ``size`` values in order from rank ``first`` on."""
+        middle = first + size // 2
+        if size % 2:
+            return float(self.at(np.array([middle]))[0])
+        low, high = self.at(np.array([middle - 1, middle]))
+        return float((low + high) / 2)
+
+    def mad(self, median: float) -> float:
+        """The median absolute deviation about ``median``."""
         deviations = np.abs(self.distinct - median)
         order = np.argsort(deviations, kind="stable")
-        by_deviation = CountedValues(deviations[order], self.counts[order])
-        positions = np.array([(self.n - 1) // 2, self.n // 2])
-        low, high = by_deviation.at(positions)
-        mad = float(low) if self.n % 2 else float((low + high) / 2)
+        return CountedValues(deviations[order], self.counts[order]).median_of(0, self.n)
+
+    def absolute_deviations(self, median: float, z_limit: float, z_constant: float) -> tuple[float, int | None]:
+        mad = self.mad(median)
         if mad == 0.0:
             return mad, None
-        return mad, int(self.counts[deviations > z_limit * mad / z_constant].sum())
+        return mad, int(self.counts[np.abs(self.distinct - median) > z_limit * mad / z_constant].sum())
 
     def materialized(self) -> np.ndarray:
         return np.repeat(self.distinct, self.counts)

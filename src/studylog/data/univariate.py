@@ -210,14 +210,14 @@ def normality(values: np.ndarray | OrderedValues, skewness: float | None,
     """Shapiro-Wilk for 3 <= n <= 5000, D'Agostino-Pearson above; None below 3 or for constant data."""
     from studylog.data.significance import dagostino_pearson_from_moments
 
-    n = values.n if isinstance(values, (SortedValues, CountedValues)) else values.size
+    ordered = _ordered(values)
+    n = ordered.n
     if n < 3 or skewness is None:
         return None
     if n <= SHAPIRO_MAX_N:
         from scipy import stats
 
-        plain = values.materialized() if isinstance(values, (SortedValues, CountedValues)) else values
-        statistic, p_value = stats.shapiro(plain)
+        statistic, p_value = stats.shapiro(ordered.materialized())
         test = "shapiro-wilk"
     else:
         # the biased moments back from G1 and G2 (exact algebra, no second pass over the values)
