@@ -90,3 +90,46 @@ print(built_with, before, pa.default_memory_pool().backend_name)
     assert done.returncode == 0, done.stderr
     built_with, before, after = done.stdout.split()
     assert after == ("jemalloc" if built_with == "True" else before)
+
+
+KEEP_WATCHED = in_process.script(before="""
+import os
+from studylog.data import runtime
+answers = []
+original = runtime.keep_freed_arrow_memory
+def watched():
+    answers.append((original(), os.environ.get("MIMALLOC_PURGE_DELAY")))
+    return answers[-1][0]
+runtime.keep_freed_arrow_memory = watched
+""", after="""
+sys.stderr.write(f"\\nexit={code} answers={answers}\\n")
+""")
+
+
+def test_profile_sets_arrows_purge_delay_before_pyarrow_loads(tmp_path: Path) -> None:
+    # mimalloc reads its settings from the environment when the library loads: too late afterwards
+    data = tmp_path / "small.csv"
+    data.write_text("id,score\n1,2.5\n2,3.5\n3,\n", encoding="utf-8")
+    env = {k: v for k, v in _env(tmp_path).items() if k != "MIMALLOC_PURGE_DELAY"}
+    done = _python(KEEP_WATCHED, "profile", str(data), "--json", env=env, cwd=tmp_path)
+    last = done.stderr.strip().splitlines()[-1]
+    assert last == f"exit=0 answers=[(True, '{runtime_delay()}')]", done.stderr[-2000:]
+
+
+def test_keep_freed_arrow_memory_keeps_the_users_choice(tmp_path: Path) -> None:
+    script = """
+import os
+from studylog.data import runtime
+print(runtime.keep_freed_arrow_memory(), os.environ["MIMALLOC_PURGE_DELAY"])
+import pyarrow
+print(runtime.keep_freed_arrow_memory())
+"""
+    done = _python(script, env=_env(tmp_path, MIMALLOC_PURGE_DELAY="50"), cwd=tmp_path)
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.split() == ["True", "50", "False"]
+
+
+def runtime_delay() -> int:
+    from studylog.data import runtime
+
+    return runtime.PROFILE_PURGE_DELAY_MS

@@ -47,13 +47,12 @@ def profile(
     from studylog.data import runtime
 
     runtime.one_blas_thread()
+    runtime.keep_freed_arrow_memory()
     from studylog import profiling
     from studylog.cli.common import location
     from studylog.errors import NoStudyFound
 
     runtime.reuse_freed_memory()
-    runtime.prefer_jemalloc()
-    runtime.small_pages()
     try:
         where = location()
     except NoStudyFound:

@@ -46,12 +46,32 @@ def arrow_without_pandas() -> None:
         sys.meta_path.remove(finder)
 
 
+# how long Arrow's default allocator (mimalloc) keeps freed pages before it hands them back, in ms
+PROFILE_PURGE_DELAY_MS = 1000
+
+
+def keep_freed_arrow_memory(delay_ms: int = PROFILE_PURGE_DELAY_MS) -> bool:
+    """Ask mimalloc, Arrow's default allocator, to keep freed pages ``delay_ms`` before handing them
+    back to the system (its default is 10 ms), where the user has not chosen; True when it can still
+    take effect.
+
+    The profile frees and makes column-sized Arrow buffers all the time; handed back within
+    milliseconds, their pages were faulted in afresh by the next ones, half of the run's time in the
+    kernel. mimalloc reads its settings from the environment when the library loads, so this must come
+    before pyarrow is imported.
+    """
+    os.environ.setdefault("MIMALLOC_PURGE_DELAY", str(delay_ms))
+    return "pyarrow" not in sys.modules
+
+
 def prefer_jemalloc(decay_ms: int | None = None) -> None:
     """Make jemalloc Arrow's allocator, where pyarrow is built with it (else keep its default).
 
-    Checking and profiling allocate and free column-sized buffers all the time; mimalloc, Arrow's
-    default, hands freed pages back to the system within milliseconds, jemalloc keeps them for reuse:
-    less of the run's CPU in the kernel, and a lower peak for the check. ``decay_ms``: how long freed
+    The check allocates and frees column-sized buffers all the time; mimalloc, Arrow's default, hands
+    freed pages back to the system within milliseconds, jemalloc keeps them for reuse: less of the
+    run's CPU in the kernel, and a lower peak. (The profile keeps mimalloc with a longer delay,
+    ``keep_freed_arrow_memory``, and numpy's huge pages: the two together took half its system time
+    off, where jemalloc with small pages did less.) ``decay_ms``: how long freed
     pages are kept (jemalloc's default here is a second). The check keeps them a tenth of a second
     (``CHECK_DECAY_MS``): a second's worth of its batches' buffers was some 50 MB of its peak, and
     the shorter time cost no measurable time; with none kept (0) the kernel's work doubled.
@@ -99,19 +119,3 @@ def one_blas_thread() -> bool:
     """
     os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
     return "numpy" not in sys.modules
-
-
-def small_pages() -> None:
-    """Keep numpy from asking the kernel for huge pages for its arrays of 4 MB or more.
-
-    The profile makes and drops hundreds of column-sized arrays; where the kernel grants huge pages
-    only on request (``madvise``), each one is zeroed and often compacted for when faulted in, which
-    cost the profile more system time than the fewer faults saved (a tenth of a second, and most of
-    its variation from run to run).
-    """
-    import numpy as np
-
-    core = getattr(np, "_core", None) or getattr(np, "core", None)
-    switch = getattr(getattr(core, "multiarray", None), "_set_madvise_hugepage", None)
-    if switch is not None:
-        switch(False)
