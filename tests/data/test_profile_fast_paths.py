@@ -203,3 +203,15 @@ def test_pair_ranks_from_the_columns_own_ranks_equal_those_counted_again(ties: b
     monkeypatch.undo()
     expected = stats.spearmanr(x[both], y[both]).statistic  # scipy as the reference
     assert pairs.spearman_pair(a, b) == pytest.approx(expected, rel=1e-12)
+
+
+@pytest.mark.parametrize("levels", [1, 3, pairs.INDICATOR_LEVELS, pairs.INDICATOR_LEVELS + 5])
+def test_sums_by_level_equal_numpys_sums_over_each_levels_rows(levels: int) -> None:
+    # matrix product with the indicators (few levels) or a weighted count (many): numpy's sum of the
+    # rows of each level, missing rows (-1) in none
+    rng = np.random.default_rng(RNG_SEED + levels)
+    codes = rng.integers(-1, levels, 5000)
+    values = rng.normal(3.0, 2.0, 5000)
+    column = pairs.LevelColumn("g", codes, levels)
+    expected = [values[codes == level].sum() for level in range(levels)]
+    np.testing.assert_allclose(column.sums_by_level(values), expected, rtol=1e-12, atol=1e-9)

@@ -37,6 +37,8 @@ INTEGER_COUNTING_SPAN = 1 << 22
 # a pair's ranks are worked out from the column's own where it has this many times more tie groups
 # than rows dropped for the pair (``RankBase._pair_ranks_sparse``)
 SPARSE_GROUPS = 8
+# sums by level are matrix products with the levels' indicators up to this many levels
+INDICATOR_LEVELS = 8
 
 
 def _dot(a: np.ndarray, b: np.ndarray) -> float:
@@ -459,6 +461,19 @@ class LevelColumn:
         passes over a quarter of the bytes are that much faster (made once, read by every pair)."""
         shifted = self.codes + 1
         return shifted.astype(np.int16) if self.levels <= MAX_PAIR_LEVELS else shifted
+
+    def sums_by_level(self, values: np.ndarray) -> np.ndarray:
+        """The sum of ``values`` (one per row, no NaN) over each level's rows: for a few levels, one
+        matrix product with their indicators (made once), several times faster than a weighted count."""
+        if self.levels <= INDICATOR_LEVELS:
+            return self._indicators @ values
+        slot = self.slotted[0]
+        return np.bincount(slot, weights=values, minlength=self.levels + 1)[: self.levels]
+
+    @functools.cached_property
+    def _indicators(self) -> np.ndarray:
+        """1.0 where a row has the level, one row of the matrix per level."""
+        return (self.codes == np.arange(self.levels)[:, None]).astype(np.float64)
 
     @functools.cached_property
     def slotted(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

@@ -217,7 +217,7 @@ def _leakage_measure(column: _Column, target: _Column, target_levels: pairs.Leve
         slot, sizes, target_missing = target_levels.slotted
         sizes = sizes - np.bincount(slot[base.missing_rows], minlength=k + 1)[:k]
         if sizes.sum() >= pairs.MIN_PAIR_CASES:
-            sums = np.bincount(slot, weights=base.centred, minlength=k + 1)[:k]
+            sums = target_levels.sums_by_level(base.centred)
             outside = base.centred[target_missing]
             result = significance.anova_of_sums(sizes, sums, base.total_squares - float(outside @ outside))
             return "eta_squared", (result["eta_squared"] if result else None)

@@ -19,7 +19,6 @@ whole CSV at once where it can (:mod:`studylog.data.read_whole`), else through t
 from __future__ import annotations
 
 import codecs
-import hashlib
 import os
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
@@ -199,6 +198,8 @@ def read_table(
 
 def file_facts(path: str | os.PathLike[str]) -> tuple[str, int]:
     """The file's SHA-256 (hex) and its size in bytes, read in chunks."""
+    import hashlib  # here: OpenSSL's loading would delay every read's start by some milliseconds
+
     digest = hashlib.sha256()
     size = 0
     try:
