@@ -185,13 +185,13 @@ def _target_section(column: _Column, strings: pa.ChunkedArray) -> tuple[dict[str
             "min", "q1", "median", "q3", "max", "mean", "sd", "skewness", "kurtosis", "histogram")}
     if class_like:
         levels = _as_levels(column, strings)
-        counts = np.bincount(levels.codes[levels.codes >= 0], minlength=levels.levels)
         names = levels.extra.get("levels") if column.levels is None else None
-        if names is None:
+        if names is None:  # the column's own frequency table holds the counts
             names = [level["value"] for level in entry["levels"]]
             lookup = {level["value"]: level["count"] for level in entry["levels"]}
             classes = [{"value": v, "count": lookup[v]} for v in names]
         else:
+            counts = np.bincount(levels.codes[levels.codes >= 0], minlength=levels.levels)
             order = np.lexsort((np.asarray(names, dtype=object).astype(str), -counts))
             classes = [{"value": names[i], "count": int(counts[i])} for i in order if counts[i] > 0]
         total = sum(c["count"] for c in classes)
