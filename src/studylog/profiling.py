@@ -147,37 +147,41 @@ def profile_file(
 
     path = Path(path)
     batches: queue.SimpleQueue[Any] = queue.SimpleQueue()
-    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="studylog-read") as reader:
-        reading = reader.submit(_read, path, encoding, sheet, batches.put)
-        # what the profile needs besides the data, imported while the file is read (pyarrow reads
-        # outside Python's lock): the computations, and the distributions of the p-values
-        from studylog.data import early as early_work
-        from studylog.data import profile, significance
-
-        _quietly(significance.tails)
-        # then the reading of each batch read as numbers, dates or levels, on the core the parse
-        # leaves idle
-        early = early_work.EarlyColumns(_blocks(path))
-        while True:
-            # a few batches at a time (the fewer the calls, the less time in Python), and all there are
-            come = [batches.get()]
-            while come[-1] is not _READ and (len(come) < EARLY_BATCHES or not batches.empty()):
-                come.append(batches.get())
-            ended = come[-1] is _READ
-            for part in _split(come[:-1] if ended else come):
-                if part is None:
-                    early.give_up()
-                else:
-                    early.add(part)
-            if ended:
-                break
-        data = reading.result()
-    pool = profile.workers()
+    pool: ThreadPoolExecutor | None = None
     try:
+        with ThreadPoolExecutor(max_workers=1, thread_name_prefix="studylog-read") as reader:
+            reading = reader.submit(_read, path, encoding, sheet, batches.put)
+            # what the profile needs besides the data, imported while the file is read (pyarrow reads
+            # outside Python's lock): the computations, and the distributions of the p-values
+            from studylog.data import early as early_work
+            from studylog.data import profile, significance
+
+            _quietly(significance.tails)
+            pool = profile.workers()
+            # then the reading of each batch read as numbers, dates or levels, on the core the parse
+            # leaves idle
+            early = early_work.EarlyColumns(_blocks(path))
+            while True:
+                # a few batches at a time (the fewer the calls, the less time in Python), and all there are
+                come = [batches.get()]
+                while come[-1] is not _READ and (len(come) < EARLY_BATCHES or not batches.empty()):
+                    come.append(batches.get())
+                ended = come[-1] is _READ
+                for part in _split(come[:-1] if ended else come):
+                    if part is None:
+                        early.give_up()
+                    else:
+                        # while the file is read, the parse has the other core; the batches left at
+                        # its end are worked on by the pool's threads, a column each
+                        early.add(part, pool.map if ended else map)
+                if ended:
+                    break
+            data = reading.result()
         return _profile_read(data, path, pool, early, target=target, by=by, strong=strong, table=table,
                              location=location)
     finally:
-        pool.shutdown()
+        if pool is not None:
+            pool.shutdown()
 
 
 _READ = object()  # the reader's last word

@@ -117,3 +117,34 @@ def test_nothing_worked_out_early_for_a_wide_table() -> None:
     early = EarlyColumns()
     early.add(table.to_batches())
     assert early.take(table, {name: "numbers" for name in table.column_names}) == {}
+
+
+def test_columns_worked_out_by_a_pool_equal_those_worked_out_in_turn() -> None:
+    # the batches left at the end of a read are worked on a column per thread: the same result
+    from concurrent.futures import ThreadPoolExecutor
+
+    rng = np.random.default_rng(RNG_SEED)
+    n = 4000
+    columns = {
+        "x": pa.array(np.round(rng.normal(size=n), 3).astype(str), pa.string()),
+        "day": pa.array([f"2024-03-{1 + i % 28:02d}" for i in range(n)], pa.string()),
+        "g": pa.array(rng.choice(["a", "b", None], n).tolist(), pa.string()),
+        "t": pa.array([f"w{i}" for i in range(n)], pa.string()),
+    }
+    table = pa.table(columns)
+    batches = table.to_batches(max_chunksize=300)
+    table = pa.Table.from_batches(batches)
+    kinds = {"x": "numbers", "day": "iso_dates", "g": "levels", "t": "levels"}
+    found = []
+    with ThreadPoolExecutor(max_workers=3) as pool:
+        for mapper in (map, pool.map):
+            early = EarlyColumns(len(batches) / 3)
+            early.add(batches[:3])
+            early.add(batches[3:], mapper)
+            found.append(early.take(table, kinds))
+    serial, pooled = found
+    assert set(serial) == set(pooled) == {"x", "day", "g"}  # "t" has too many distinct texts
+    assert serial["x"].value.tobytes() == pooled["x"].value.tobytes()
+    assert np.array_equal(serial["day"].value, pooled["day"].value, equal_nan=True)
+    assert np.array_equal(serial["g"].value.indices, pooled["g"].value.indices)
+    assert np.array_equal(serial["x"].value, cells.to_numpy(cells.float_values(table.column("x")), np.nan))

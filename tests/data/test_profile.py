@@ -203,7 +203,7 @@ def test_columns_worked_out_while_the_file_is_read_change_nothing(tmp_path, monk
     path = tmp_path / "x.csv"
     path.write_text("id,x,n,g,day,flag\n" + "\n".join(rows) + "\n")
     early = profiling.profile_file(path, target="g")
-    monkeypatch.setattr(early_work.EarlyColumns, "add", lambda self, batches: None)
+    monkeypatch.setattr(early_work.EarlyColumns, "add", lambda self, batches, mapper=map: None)
     assert json.dumps(early, sort_keys=True) == json.dumps(profiling.profile_file(path, target="g"), sort_keys=True)
 
 

@@ -17,7 +17,7 @@ column whose codes are numbers was read as numbers here, and the profile encodes
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -140,9 +140,11 @@ class EarlyColumns:
         self._not_numbers: set[int] = set()  # columns found to hold a text that is no number
         self._room = 0  # the rows each column's array is made for (from the first batch)
 
-    def add(self, batches: Sequence[pa.RecordBatch]) -> None:
+    def add(self, batches: Sequence[pa.RecordBatch],
+            mapper: Callable[..., Iterable[Any]] = map) -> None:
         """The next batches of rows, in order (as many as have come: the fewer the calls, the less
-        time in Python)."""
+        time in Python). ``mapper`` (e.g. a thread pool's map) works on the columns: the batches
+        left when the read has ended are worked on by every core."""
         if not self._usable or not batches:
             return
         rows = sum(batch.num_rows for batch in batches)
@@ -155,26 +157,34 @@ class EarlyColumns:
             self._readers = [None] * batches[0].num_columns
             self._values = [np.empty(0)] * batches[0].num_columns
         start, end = self._rows, self._rows + rows
-        for position in range(len(self._readers)):
-            chunks = [batch.column(position) for batch in batches]
-            if first:
-                self._readers[position] = self._first_fit(position, chunks, end)
-                continue
-            reader = self._readers[position]
-            if reader is None:
-                continue
-            values = self._values[position]
-            if end > values.size:
-                grown = np.empty(max(end, int(values.size * 1.5)), dtype=values.dtype)
-                grown[:start] = values[:start]
-                self._values[position] = values = grown
-            if not reader.read(chunks, values[start:end]):
-                if reader.kind == "numbers":
-                    self._not_numbers.add(position)
-                self._readers[position] = None
-                self._values[position] = np.empty(0)
+        def add_column(position: int) -> None:
+            self._add_column(position, batches, start, end, first)
+
+        for _done in mapper(add_column, range(len(self._readers))):
+            pass
         self._rows = end
         self._lengths.extend(batch.num_rows for batch in batches)
+
+    def _add_column(self, position: int, batches: Sequence[pa.RecordBatch], start: int, end: int,
+                    first: bool) -> None:
+        """One column of ``add``: touches only that column's reader and values."""
+        chunks = [batch.column(position) for batch in batches]
+        if first:
+            self._readers[position] = self._first_fit(position, chunks, end)
+            return
+        reader = self._readers[position]
+        if reader is None:
+            return
+        values = self._values[position]
+        if end > values.size:
+            grown = np.empty(max(end, int(values.size * 1.5)), dtype=values.dtype)
+            grown[:start] = values[:start]
+            self._values[position] = values = grown
+        if not reader.read(chunks, values[start:end]):
+            if reader.kind == "numbers":
+                self._not_numbers.add(position)
+            self._readers[position] = None
+            self._values[position] = np.empty(0)
 
     def _first_fit(self, position: int, chunks: list[pa.Array], end: int) -> Any:
         for reader in (_Numbers(), _IsoDates(), _Levels()):
