@@ -14,6 +14,8 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 import in_process  # noqa: E402
 
+from studylog.data import runtime  # noqa: E402
+
 FRESH = """
 import os, sys
 from studylog.data import runtime
@@ -113,7 +115,7 @@ def test_profile_sets_arrows_purge_delay_before_pyarrow_loads(tmp_path: Path) ->
     env = {k: v for k, v in _env(tmp_path).items() if k != "MIMALLOC_PURGE_DELAY"}
     done = _python(KEEP_WATCHED, "profile", str(data), "--json", env=env, cwd=tmp_path)
     last = done.stderr.strip().splitlines()[-1]
-    assert last == f"exit=0 answers=[(True, '{runtime_delay()}')]", done.stderr[-2000:]
+    assert last == f"exit=0 answers=[(True, '{runtime.PROFILE_PURGE_DELAY_MS}')]", done.stderr[-2000:]
 
 
 def test_keep_freed_arrow_memory_keeps_the_users_choice(tmp_path: Path) -> None:
@@ -127,9 +129,3 @@ print(runtime.keep_freed_arrow_memory())
     done = _python(script, env=_env(tmp_path, MIMALLOC_PURGE_DELAY="50"), cwd=tmp_path)
     assert done.returncode == 0, done.stderr
     assert done.stdout.split() == ["True", "50", "False"]
-
-
-def runtime_delay() -> int:
-    from studylog.data import runtime
-
-    return runtime.PROFILE_PURGE_DELAY_MS

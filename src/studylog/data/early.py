@@ -157,11 +157,8 @@ class EarlyColumns:
             self._readers = [None] * batches[0].num_columns
             self._values = [np.empty(0)] * batches[0].num_columns
         start, end = self._rows, self._rows + rows
-        def add_column(position: int) -> None:
-            self._add_column(position, batches, start, end, first)
-
-        for _done in mapper(add_column, range(len(self._readers))):
-            pass
+        list(mapper(lambda position: self._add_column(position, batches, start, end, first),
+                    range(len(self._readers))))
         self._rows = end
         self._lengths.extend(batch.num_rows for batch in batches)
 
