@@ -145,12 +145,17 @@ def profile_file(
     import queue
     from concurrent.futures import ThreadPoolExecutor
 
+    from studylog.data.read import CSV_EXTENSIONS
+
     path = Path(path)
     batches: queue.SimpleQueue[Any] = queue.SimpleQueue()
     pool: ThreadPoolExecutor | None = None
     try:
         with ThreadPoolExecutor(max_workers=1, thread_name_prefix="studylog-read") as reader:
             reading = reader.submit(_read, path, encoding, sheet, batches.put)
+            # a CSV's reader has Python's lock to itself until its parse has begun (the first batch
+            # it tells of): the imports below, made meanwhile, put that start off by their length
+            told = [batches.get()] if path.suffix.lower() in CSV_EXTENSIONS else []
             # what the profile needs besides the data, imported while the file is read (pyarrow reads
             # outside Python's lock): the computations, and the distributions of the p-values
             from studylog.data import early as early_work
@@ -163,7 +168,8 @@ def profile_file(
             early = early_work.EarlyColumns(_blocks(path))
             while True:
                 # a few batches at a time (the fewer the calls, the less time in Python), and all there are
-                come = [batches.get()]
+                come = told or [batches.get()]
+                told = []
                 while come[-1] is not _READ and (len(come) < EARLY_BATCHES or not batches.empty()):
                     come.append(batches.get())
                 ended = come[-1] is _READ
