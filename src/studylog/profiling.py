@@ -145,7 +145,7 @@ def profile_file(
     import queue
     from concurrent.futures import ThreadPoolExecutor
 
-    from studylog.data.read import CSV_EXTENSIONS
+    from studylog.data.read import tells_batches
 
     path = Path(path)
     batches: queue.SimpleQueue[Any] = queue.SimpleQueue()
@@ -155,7 +155,7 @@ def profile_file(
             reading = reader.submit(_read, path, encoding, sheet, batches.put)
             # a CSV's reader has Python's lock to itself until its parse has begun (the first batch
             # it tells of): the imports below, made meanwhile, put that start off by their length
-            told = [batches.get()] if path.suffix.lower() in CSV_EXTENSIONS else []
+            told = [batches.get()] if tells_batches(path) else []
             # what the profile needs besides the data, imported while the file is read (pyarrow reads
             # outside Python's lock): the computations, and the distributions of the p-values
             from studylog.data import early as early_work

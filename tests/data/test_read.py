@@ -418,3 +418,15 @@ def test_the_scan_validates_utf8_as_the_parser_does(tmp_path: Path, data: bytes,
         with pytest.raises(InputFileError) as caught:
             read_table(path)
         assert "not valid utf-8" in caught.value.message
+
+
+def test_only_a_whole_csv_read_tells_of_its_batches(tmp_path: Path) -> None:
+    # the profile waits for the first batch before its imports only where one will come
+    path = tmp_path / "members.csv"
+    path.write_text("id,age\n1,30\n2,41\n", encoding="utf-8")
+    told: list[object] = []
+    table = read_table(path, watch=told.append)
+    assert read.tells_batches(path) and told and sum(len(batch) for batch in told) == table.num_rows == 2
+    assert not read.tells_batches(path, progress=lambda done, total: None)
+    assert not read.tells_batches(tmp_path / "members.parquet")
+    assert read.tells_batches(tmp_path / "MEMBERS.TSV")

@@ -178,7 +178,7 @@ def read_table(
     their order; and None if the read is given up (the rows then come from the streaming reader, and
     what it was told stands for nothing)."""
     file = Path(path)
-    if progress is None and file.suffix.lower() in CSV_EXTENSIONS:
+    if tells_batches(file, progress):
         from studylog.data.read_whole import csv_whole
 
         source = _open(file, encoding, sheet, batch_rows, progress, probe=False)
@@ -194,6 +194,12 @@ def read_table(
         return _streamed_whole(open_source(file, encoding=encoding, sheet=sheet, batch_rows=batch_rows))
     source = open_source(path, encoding=encoding, sheet=sheet, batch_rows=batch_rows, progress=progress)
     return source.table()
+
+
+def tells_batches(path: Path, progress: Progress | None = None) -> bool:
+    """Whether ``read_table`` reads the file in one CSV parse and tells ``watch`` of its batches as they
+    come (else it tells nothing before the end)."""
+    return progress is None and path.suffix.lower() in CSV_EXTENSIONS
 
 
 def file_facts(path: str | os.PathLike[str]) -> tuple[str, int]:
